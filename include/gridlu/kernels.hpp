@@ -1,0 +1,42 @@
+// Typed BLAS/LAPACK layer: the only code that calls CBLAS or LAPACKE. Column-major
+// storage throughout; sizes are local and fit BLAS's 32-bit integers.
+#pragma once
+
+#include <cstdint>
+
+#include "gridlu/layout.hpp"
+#include "gridlu/scalar.hpp"
+
+namespace gridlu::blas {
+
+enum class op { none, transpose };
+enum class triangle { lower, upper };
+enum class diagonal { unit, non_unit };
+
+// C = alpha op(A) op(B) + beta C, with op(A) m x k and op(B) k x n.
+template <scalar T>
+void gemm(op opa, op opb, index_t m, index_t n, index_t k, T alpha, const T* a, index_t lda,
+          const T* b, index_t ldb, T beta, T* c, index_t ldc);
+
+// B = alpha inv(A) B with A an m x m triangle (left side, no transpose).
+template <scalar T>
+void trsm_left(triangle uplo, diagonal diag, index_t m, index_t n, T alpha, const T* a,
+               index_t lda, T* b, index_t ldb);
+
+// A += alpha x y^T (unconjugated for complex).
+template <scalar T>
+void rank1(index_t m, index_t n, T alpha, const T* x, const T* y, T* a, index_t lda);
+
+// x = alpha x, contiguous.
+template <scalar T>
+void scale(index_t n, T alpha, T* x);
+
+// LAPACK's LU with partial pivoting of an m x n matrix, used as the reference in tests
+// and benchmarks. ipiv gets min(m, n) 1-based row indices; returns LAPACK's info.
+template <scalar T>
+int lapack_getrf(index_t m, index_t n, T* a, index_t lda, std::int32_t* ipiv);
+
+// Threads of the BLAS library itself (one per rank is gridlu's default).
+void set_threads(int threads);
+
+}  // namespace gridlu::blas

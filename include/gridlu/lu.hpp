@@ -1,0 +1,30 @@
+// LU factorization with partial pivoting of a distributed square matrix, and the
+// solve with its factors.
+#pragma once
+
+#include <span>
+#include <vector>
+
+#include "gridlu/matrix.hpp"
+
+namespace gridlu {
+
+struct lu_result {
+  // Row i was interchanged with row pivots[i] (0-based, i <= pivots[i]), applied in
+  // order i = 0..n-1: LAPACK's ipiv less one. The same on every rank.
+  std::vector<index_t> pivots;
+  // First column (0-based) whose pivot was exactly zero, or -1. The factorization goes
+  // on past it, as LAPACK's does; its info is this plus one.
+  index_t first_zero_pivot = -1;
+};
+
+// Overwrites a with L (unit lower, below the diagonal) and U, in LAPACK's convention:
+// P A = L U. Collective over a's grid.
+template <scalar T>
+lu_result factor(dist_matrix<T>& a);
+
+// Overwrites b (n x k, same grid and block size as lu) with inv(A) b.
+template <scalar T>
+void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b);
+
+}  // namespace gridlu

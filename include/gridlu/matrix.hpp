@@ -1,0 +1,63 @@
+// A distributed dense matrix: this rank's part of a block-cyclic m x n matrix, stored
+// column-major with a leading dimension.
+#pragma once
+
+#include <algorithm>
+#include <vector>
+
+#include "gridlu/grid.hpp"
+#include "gridlu/layout.hpp"
+#include "gridlu/scalar.hpp"
+
+namespace gridlu {
+
+template <scalar T>
+class dist_matrix {
+public:
+  // The grid must outlive the matrix.
+  dist_matrix(const process_grid& grid, index_t m, index_t n, index_t nb);
+
+  const process_grid& grid() const { return *grid_; }
+  const block_cyclic& layout() const { return layout_; }
+  index_t rows() const { return layout_.rows.extent(); }
+  index_t cols() const { return layout_.cols.extent(); }
+  index_t block() const { return layout_.rows.block(); }
+  index_t local_rows() const { return local_rows_; }
+  index_t local_cols() const { return local_cols_; }
+  index_t ld() const { return ld_; }
+
+  T* data() { return storage_.data(); }
+  const T* data() const { return storage_.data(); }
+  // Pointer to local entry (li, lj); columns are contiguous. An empty view at the edge
+  // of the local part (li or lj one past the end) points at the end, never beyond it.
+  T* at(index_t li, index_t lj) { return storage_.data() + offset(li, lj); }
+  const T* at(index_t li, index_t lj) const { return storage_.data() + offset(li, lj); }
+
+  // Sets every local entry to f(i, j) of its global indices.
+  template <class F>
+  void fill(F&& f) {
+    for (index_t lj = 0; lj < local_cols_; ++lj) {
+      const index_t j = layout_.cols.global(grid_->mycol(), lj);
+      for (index_t li = 0; li < local_rows_; ++li)
+        *at(li, lj) = f(layout_.rows.global(grid_->myrow(), li), j);
+    }
+  }
+
+  // Whole matrix, column-major m x n, on rank `root` of the grid (empty elsewhere).
+  // For tests and small problems only: it holds everything on one rank.
+  std::vector<T> gather(int root = 0) const;
+  // Inverse of gather: root's column-major m x n array is distributed.
+  void scatter(const std::vector<T>& whole, int root = 0);
+
+private:
+  index_t offset(index_t li, index_t lj) const {
+    return std::min(li + lj * ld_, static_cast<index_t>(storage_.size()));
+  }
+
+  const process_grid* grid_;
+  block_cyclic layout_;
+  index_t local_rows_, local_cols_, ld_;
+  std::vector<T> storage_;
+};
+
+}  // namespace gridlu

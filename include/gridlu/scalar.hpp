@@ -1,0 +1,77 @@
+// The four element types and what the algorithms need to know about each.
+#pragma once
+
+#include <cmath>
+#include <complex>
+#include <limits>
+#include <string_view>
+
+namespace gridlu {
+
+template <class T>
+struct scalar_traits;
+
+template <>
+struct scalar_traits<float> {
+  using real = float;
+  static constexpr bool is_complex = false;
+  static constexpr std::string_view name = "float32";
+};
+template <>
+struct scalar_traits<double> {
+  using real = double;
+  static constexpr bool is_complex = false;
+  static constexpr std::string_view name = "float64";
+};
+template <>
+struct scalar_traits<std::complex<float>> {
+  using real = float;
+  static constexpr bool is_complex = true;
+  static constexpr std::string_view name = "complex64";
+};
+template <>
+struct scalar_traits<std::complex<double>> {
+  using real = double;
+  static constexpr bool is_complex = true;
+  static constexpr std::string_view name = "complex128";
+};
+
+template <class T>
+using real_t = typename scalar_traits<T>::real;
+
+template <class T>
+concept scalar = requires { typename scalar_traits<T>::real; };
+
+// Unit roundoff-sized machine epsilon of the type (LAPACK's xLAMCH('E') is half this).
+template <scalar T>
+constexpr real_t<T> epsilon() {
+  return std::numeric_limits<real_t<T>>::epsilon();
+}
+
+// |Re| + |Im|: the magnitude LAPACK's pivot search compares for complex types.
+template <scalar T>
+real_t<T> abs1(T x) {
+  if constexpr (scalar_traits<T>::is_complex) return std::abs(x.real()) + std::abs(x.imag());
+  else return std::abs(x);
+}
+
+// Flops of an LU factorization of order n: 2/3 n^3 real operations, four times as many
+// for complex (a complex multiply-add is four real ones) -- common practice.
+template <scalar T>
+double lu_flops(double n) {
+  const double real_flops = 2.0 / 3.0 * n * n * n;
+  return scalar_traits<T>::is_complex ? 4.0 * real_flops : real_flops;
+}
+
+// Calls f with a value of each element type named by `type` ("float64", ...).
+template <class F>
+bool dispatch_scalar(std::string_view type, F&& f) {
+  if (type == scalar_traits<float>::name) f(float{});
+  else if (type == scalar_traits<double>::name) f(double{});
+  else if (type == scalar_traits<std::complex<float>>::name) f(std::complex<float>{});
+  else if (type == scalar_traits<std::complex<double>>::name) f(std::complex<double>{});
+  else return false;
+  return true;
+}
+
+}  // namespace gridlu

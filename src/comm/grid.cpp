@@ -1,0 +1,241 @@
+// The one place that calls MPI.
+#include "gridlu/grid.hpp"
+
+#include <algorithm>
+#include <charconv>
+#include <climits>
+#include <complex>
+#include <cstdint>
+#include <new>
+
+namespace gridlu {
+namespace {
+
+void check(int rc, const char* what) {
+  if (rc != MPI_SUCCESS) {
+    char text[MPI_MAX_ERROR_STRING];
+    int len = 0;
+    MPI_Error_string(rc, text, &len);
+    throw error(exit_code::internal, std::string(what) + ": " + std::string(text, len));
+  }
+}
+
+template <class T>
+MPI_Datatype mpi_type() {
+  if constexpr (std::is_same_v<T, float>) return MPI_FLOAT;
+  else if constexpr (std::is_same_v<T, double>) return MPI_DOUBLE;
+  else if constexpr (std::is_same_v<T, std::complex<float>>) return MPI_CXX_FLOAT_COMPLEX;
+  else if constexpr (std::is_same_v<T, std::complex<double>>) return MPI_CXX_DOUBLE_COMPLEX;
+  else if constexpr (std::is_same_v<T, std::int64_t>) return MPI_INT64_T;
+  else if constexpr (std::is_same_v<T, int>) return MPI_INT;
+  else if constexpr (std::is_same_v<T, char>) return MPI_CHAR;
+  else static_assert(sizeof(T) == 0, "no MPI type for T");
+}
+
+int to_int(index_t count) {
+  if (count < 0 || count > INT_MAX) throw error(exit_code::internal, "message too large for MPI");
+  return static_cast<int>(count);
+}
+
+std::vector<int> displacements(const std::vector<int>& counts) {
+  std::vector<int> d(counts.size(), 0);
+  for (std::size_t i = 1; i < counts.size(); ++i) d[i] = d[i - 1] + counts[i - 1];
+  return d;
+}
+
+}  // namespace
+
+mpi_session::mpi_session(int& argc, char**& argv) { MPI_Init(&argc, &argv); }
+mpi_session::~mpi_session() { MPI_Finalize(); }
+
+communicator::~communicator() {
+  if (comm_ != MPI_COMM_NULL) MPI_Comm_free(&comm_);
+}
+communicator::communicator(communicator&& other) noexcept : comm_(other.comm_) {
+  other.comm_ = MPI_COMM_NULL;
+}
+communicator& communicator::operator=(communicator&& other) noexcept {
+  std::swap(comm_, other.comm_);
+  return *this;
+}
+int communicator::rank() const {
+  int r = 0;
+  MPI_Comm_rank(comm_, &r);
+  return r;
+}
+int communicator::size() const {
+  int s = 0;
+  MPI_Comm_size(comm_, &s);
+  return s;
+}
+
+grid_shape parse_grid_shape(std::string_view text) {
+  const auto x = text.find_first_of("xX");
+  grid_shape s{0, 0};
+  const auto number = [](std::string_view part, int& out) {
+    const auto [end, ec] = std::from_chars(part.data(), part.data() + part.size(), out);
+    return ec == std::errc{} && end == part.data() + part.size() && out > 0;
+  };
+  if (x == std::string_view::npos || !number(text.substr(0, x), s.p) ||
+      !number(text.substr(x + 1), s.q))
+    throw error(exit_code::usage,
+                "grid '" + std::string(text) + "' is not of the form PxQ with P, Q >= 1");
+  return s;
+}
+
+grid_shape square_grid_shape(int ranks) {
+  int p = 1;
+  for (int d = 1; d * d <= ranks; ++d)
+    if (ranks % d == 0) p = d;
+  return {p, ranks / p};
+}
+
+process_grid::process_grid(MPI_Comm parent, grid_shape shape) : shape_(shape) {
+  int size = 0, rank = 0;
+  MPI_Comm_size(parent, &size);
+  MPI_Comm_rank(parent, &rank);
+  if (shape.p < 1 || shape.q < 1 || shape.p * shape.q != size)
+    throw error(exit_code::usage, "grid " + std::to_string(shape.p) + "x" +
+                                      std::to_string(shape.q) + " needs " +
+                                      std::to_string(shape.p * shape.q) + " ranks, but " +
+                                      std::to_string(size) + " are running");
+  MPI_Comm c = MPI_COMM_NULL;
+  check(MPI_Comm_dup(parent, &c), "MPI_Comm_dup");
+  all_ = communicator(c);
+  myrow_ = rank / shape.q;
+  mycol_ = rank % shape.q;
+  check(MPI_Comm_split(c, myrow_, mycol_, &c), "MPI_Comm_split");
+  row_ = communicator(c);
+  check(MPI_Comm_split(all_.get(), mycol_, myrow_, &c), "MPI_Comm_split");
+  col_ = communicator(c);
+}
+
+namespace comm {
+
+double wtime() { return MPI_Wtime(); }
+void barrier(const communicator& c) { check(MPI_Barrier(c.get()), "MPI_Barrier"); }
+
+template <class T>
+void broadcast(const communicator& c, T* data, index_t count, int root) {
+  constexpr index_t chunk = index_t{1} << 28;
+  for (index_t done = 0; done < count; done += chunk)
+    check(MPI_Bcast(data + done, to_int(std::min(chunk, count - done)), mpi_type<T>(), root,
+                    c.get()),
+          "MPI_Bcast");
+}
+
+template <class T>
+void send(const communicator& c, const T* data, index_t count, int dest) {
+  check(MPI_Send(data, to_int(count), mpi_type<T>(), dest, 0, c.get()), "MPI_Send");
+}
+template <class T>
+void receive(const communicator& c, T* data, index_t count, int source) {
+  check(MPI_Recv(data, to_int(count), mpi_type<T>(), source, 0, c.get(), MPI_STATUS_IGNORE),
+        "MPI_Recv");
+}
+
+template <class T>
+void sum(const communicator& c, T* data, index_t count) {
+  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), MPI_SUM, c.get()),
+        "MPI_Allreduce");
+}
+template <class T>
+void max(const communicator& c, T* data, index_t count) {
+  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), MPI_MAX, c.get()),
+        "MPI_Allreduce");
+}
+
+candidate best(const communicator& c, candidate mine) {
+  // MPI_MAXLOC keeps the smallest index among equal values, as the pivot rule needs.
+  struct {
+    double value;
+    int index;
+  } in{mine.magnitude, mine.row < 0 ? INT_MAX : to_int(mine.row)}, out{};
+  check(MPI_Allreduce(&in, &out, 1, MPI_DOUBLE_INT, MPI_MAXLOC, c.get()), "MPI_Allreduce");
+  return {out.value, out.index == INT_MAX ? -1 : out.index};
+}
+
+template <class T>
+void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts,
+                T* recv, const std::vector<int>& recv_counts) {
+  const auto sd = displacements(send_counts), rd = displacements(recv_counts);
+  check(MPI_Alltoallv(send, send_counts.data(), sd.data(), mpi_type<T>(), recv,
+                      recv_counts.data(), rd.data(), mpi_type<T>(), c.get()),
+        "MPI_Alltoallv");
+}
+
+template <class T>
+void gather(const communicator& c, const T* send, index_t count, T* recv,
+            const std::vector<index_t>& counts, int root) {
+  std::vector<int> n;
+  if (c.rank() == root)
+    for (index_t v : counts) n.push_back(to_int(v));
+  const auto d = displacements(n);
+  check(MPI_Gatherv(send, to_int(count), mpi_type<T>(), recv, n.data(), d.data(), mpi_type<T>(),
+                    root, c.get()),
+        "MPI_Gatherv");
+}
+template <class T>
+void scatter(const communicator& c, const T* send, const std::vector<index_t>& counts, T* recv,
+             index_t count, int root) {
+  std::vector<int> n;
+  if (c.rank() == root)
+    for (index_t v : counts) n.push_back(to_int(v));
+  const auto d = displacements(n);
+  check(MPI_Scatterv(send, n.data(), d.data(), mpi_type<T>(), recv, to_int(count),
+                     mpi_type<T>(), root, c.get()),
+        "MPI_Scatterv");
+}
+
+void agree(const communicator& c, std::exception_ptr mine) {
+  exit_code code = exit_code::internal;
+  std::string message;
+  if (mine) {
+    try {
+      std::rethrow_exception(mine);
+    } catch (const error& e) {
+      code = e.code();
+      message = e.what();
+    } catch (const std::bad_alloc&) {
+      message = "out of memory";
+    } catch (const std::exception& e) {
+      message = e.what();
+    } catch (...) {
+      message = "unknown failure";
+    }
+  }
+  int first = mine ? c.rank() : c.size();
+  check(MPI_Allreduce(MPI_IN_PLACE, &first, 1, MPI_INT, MPI_MIN, c.get()), "MPI_Allreduce");
+  if (first == c.size()) return;
+  int header[2] = {static_cast<int>(code), static_cast<int>(message.size())};
+  check(MPI_Bcast(header, 2, MPI_INT, first, c.get()), "MPI_Bcast");
+  message.resize(static_cast<std::size_t>(header[1]));
+  check(MPI_Bcast(message.data(), header[1], MPI_CHAR, first, c.get()), "MPI_Bcast");
+  throw error(static_cast<exit_code>(header[0]), message);
+}
+
+#define GRIDLU_COMM_TYPES(X) \
+  X(float) X(double) X(std::complex<float>) X(std::complex<double>) X(std::int64_t) X(int)
+#define GRIDLU_COMM_INSTANTIATE(T)                                                          \
+  template void broadcast<T>(const communicator&, T*, index_t, int);                        \
+  template void send<T>(const communicator&, const T*, index_t, int);                       \
+  template void receive<T>(const communicator&, T*, index_t, int);                          \
+  template void all_to_all<T>(const communicator&, const T*, const std::vector<int>&, T*,   \
+                              const std::vector<int>&);                                     \
+  template void gather<T>(const communicator&, const T*, index_t, T*,                       \
+                          const std::vector<index_t>&, int);                                \
+  template void scatter<T>(const communicator&, const T*, const std::vector<index_t>&, T*,  \
+                           index_t, int);
+GRIDLU_COMM_TYPES(GRIDLU_COMM_INSTANTIATE)
+#undef GRIDLU_COMM_INSTANTIATE
+#undef GRIDLU_COMM_TYPES
+
+template void sum<float>(const communicator&, float*, index_t);
+template void sum<double>(const communicator&, double*, index_t);
+template void sum<std::int64_t>(const communicator&, std::int64_t*, index_t);
+template void max<float>(const communicator&, float*, index_t);
+template void max<double>(const communicator&, double*, index_t);
+template void max<std::int64_t>(const communicator&, std::int64_t*, index_t);
+
+}  // namespace comm
+}  // namespace gridlu

@@ -1,0 +1,80 @@
+// Triangular solves with the distributed LU factors, for many right-hand sides.
+#include <algorithm>
+
+#include "factor/interchange.hpp"
+#include "gridlu/kernels.hpp"
+#include "gridlu/lu.hpp"
+#include "instantiate.hpp"
+
+namespace gridlu {
+namespace {
+
+using blas::diagonal;
+using blas::op;
+using blas::triangle;
+
+// Solves with the unit-lower (L) or upper (U) triangle of lu, block row by block row:
+// the diagonal block goes along its process row, the solved block row of b down the
+// process columns, and the triangle's column below (L) or above (U) along the rows for
+// one GEMM per rank.
+template <scalar T>
+void sweep(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part) {
+  const auto& grid = lu.grid();
+  const auto& rows = lu.layout().rows;
+  const auto& cols = lu.layout().cols;
+  const int myrow = grid.myrow(), mycol = grid.mycol();
+  const index_t mloc = lu.local_rows(), nrhs = b.local_cols();
+  const index_t blocks = rows.block_count();
+  const bool lower = part == triangle::lower;
+  std::vector<T> diag, solved, column;
+  for (index_t s = 0; s < blocks; ++s) {
+    const index_t k = lower ? s : blocks - 1 - s;
+    const index_t j0 = rows.block_start(k), jb = rows.block_size(k);
+    const int pr = rows.block_owner(k), pc = cols.block_owner(k);
+    const index_t lrk = rows.local_begin(myrow, j0), lck = cols.local_begin(mycol, j0);
+
+    solved.resize(static_cast<std::size_t>(jb * nrhs));
+    if (myrow == pr) {
+      diag.resize(static_cast<std::size_t>(jb * jb));
+      if (mycol == pc)
+        for (index_t c = 0; c < jb; ++c) std::copy_n(lu.at(lrk, lck + c), jb, diag.data() + c * jb);
+      comm::broadcast(grid.row(), diag.data(), jb * jb, pc);
+      blas::trsm_left(part, lower ? diagonal::unit : diagonal::non_unit, jb, nrhs, T(1),
+                      diag.data(), jb, b.at(lrk, 0), b.ld());
+      for (index_t c = 0; c < nrhs; ++c) std::copy_n(b.at(lrk, c), jb, solved.data() + c * jb);
+    }
+    comm::broadcast(grid.col(), solved.data(), jb * nrhs, pr);
+
+    // Rows still to update: below block k for L, above it for U.
+    const index_t first = lower ? rows.local_begin(myrow, j0 + jb) : 0;
+    const index_t count = lower ? mloc - first : lrk;
+    column.resize(static_cast<std::size_t>(count * jb));
+    if (mycol == pc)
+      for (index_t c = 0; c < jb; ++c)
+        std::copy_n(lu.at(first, lck + c), count, column.data() + c * count);
+    comm::broadcast(grid.row(), column.data(), count * jb, pc);
+    blas::gemm(op::none, op::none, count, nrhs, jb, T(-1), column.data(), count, solved.data(),
+               jb, T(1), b.at(first, 0), b.ld());
+  }
+}
+
+}  // namespace
+
+template <scalar T>
+void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b) {
+  if (&b.grid() != &lu.grid() || b.rows() != lu.rows() || b.block() != lu.block() ||
+      static_cast<index_t>(pivots.size()) != lu.rows())
+    throw error(exit_code::usage,
+                "solve: right-hand sides must match the factors' order, grid and block size");
+  const detail::column_range all[] = {{0, b.local_cols()}};
+  detail::interchange_rows(b, 0, pivots, all);
+  sweep(lu, b, triangle::lower);
+  sweep(lu, b, triangle::upper);
+}
+
+#define INSTANTIATE(T) \
+  template void solve<T>(const dist_matrix<T>&, std::span<const index_t>, dist_matrix<T>&);
+GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
+#undef INSTANTIATE
+
+}  // namespace gridlu

@@ -1,0 +1,95 @@
+#include "gridlu/matrix.hpp"
+
+#include "instantiate.hpp"
+
+#include <complex>
+
+namespace gridlu {
+
+template <scalar T>
+dist_matrix<T>::dist_matrix(const process_grid& grid, index_t m, index_t n, index_t nb)
+    : grid_(&grid),
+      layout_(m, n, nb, grid.prows(), grid.pcols()),
+      local_rows_(layout_.rows.local_extent(grid.myrow())),
+      local_cols_(layout_.cols.local_extent(grid.mycol())),
+      ld_(std::max<index_t>(1, local_rows_)),
+      storage_(static_cast<std::size_t>(ld_ * local_cols_)) {
+  if (m < 0 || n < 0 || nb < 1)
+    throw error(exit_code::usage, "matrix sizes must be >= 0 and the block size >= 1");
+}
+
+namespace {
+
+// Visits, for rank r of the grid, every (local offset in r's packed column-major part,
+// global row, global column) in packing order.
+template <class F>
+void for_each_entry_of(const block_cyclic& layout, int q, int r, F&& f) {
+  const int prow = r / q, pcol = r % q;
+  const index_t mr = layout.rows.local_extent(prow), nc = layout.cols.local_extent(pcol);
+  for (index_t lj = 0; lj < nc; ++lj)
+    for (index_t li = 0; li < mr; ++li)
+      f(li + lj * mr, layout.rows.global(prow, li), layout.cols.global(pcol, lj));
+}
+
+}  // namespace
+
+template <scalar T>
+std::vector<T> dist_matrix<T>::gather(int root) const {
+  const auto& all = grid_->all();
+  std::vector<T> packed(static_cast<std::size_t>(local_rows_ * local_cols_));
+  for (index_t lj = 0; lj < local_cols_; ++lj)
+    std::copy_n(at(0, lj), local_rows_, packed.data() + lj * local_rows_);
+  std::vector<index_t> counts;
+  std::vector<T> received, whole;
+  if (all.rank() == root) {
+    for (int r = 0; r < all.size(); ++r)
+      counts.push_back(layout_.rows.local_extent(r / grid_->pcols()) *
+                       layout_.cols.local_extent(r % grid_->pcols()));
+    received.resize(static_cast<std::size_t>(rows() * cols()));
+  }
+  comm::gather(all, packed.data(), static_cast<index_t>(packed.size()), received.data(), counts,
+               root);
+  if (all.rank() != root) return whole;
+  whole.resize(received.size());
+  index_t offset = 0;
+  for (int r = 0; r < all.size(); ++r) {
+    for_each_entry_of(layout_, grid_->pcols(), r, [&](index_t k, index_t i, index_t j) {
+      whole[static_cast<std::size_t>(i + j * rows())] = received[offset + k];
+    });
+    offset += counts[r];
+  }
+  return whole;
+}
+
+template <scalar T>
+void dist_matrix<T>::scatter(const std::vector<T>& whole, int root) {
+  const auto& all = grid_->all();
+  std::vector<index_t> counts;
+  std::vector<T> packed;
+  if (all.rank() == root) {
+    if (static_cast<index_t>(whole.size()) != rows() * cols())
+      throw error(exit_code::internal, "scatter: array size does not match the matrix");
+    packed.resize(whole.size());
+    index_t offset = 0;
+    for (int r = 0; r < all.size(); ++r) {
+      index_t n = 0;
+      for_each_entry_of(layout_, grid_->pcols(), r, [&](index_t k, index_t i, index_t j) {
+        packed[offset + k] = whole[static_cast<std::size_t>(i + j * rows())];
+        ++n;
+      });
+      counts.push_back(n);
+      offset += n;
+    }
+  }
+  std::vector<T> mine(static_cast<std::size_t>(local_rows_ * local_cols_));
+  comm::scatter(all, packed.data(), counts, mine.data(), static_cast<index_t>(mine.size()),
+                root);
+  for (index_t lj = 0; lj < local_cols_; ++lj)
+    std::copy_n(mine.data() + lj * local_rows_, local_rows_, at(0, lj));
+}
+
+#define INSTANTIATE(T) template class dist_matrix<T>;
+GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
+#undef INSTANTIATE
+
+}  // namespace gridlu

@@ -1,0 +1,119 @@
+#include <algorithm>
+#include <stdexcept>
+
+#include "gridlu/accuracy.hpp"
+#include "gridlu/generate.hpp"
+#include "gridlu/kernels.hpp"
+#include "gridlu/lu.hpp"
+#include "workflows/workflows.hpp"
+
+namespace gridlu::workflows {
+namespace {
+
+double median(std::vector<double> v) {
+  std::sort(v.begin(), v.end());
+  const std::size_t m = v.size() / 2;
+  return v.size() % 2 ? v[m] : 0.5 * (v[m - 1] + v[m]);
+}
+
+template <class F>
+double timed(const process_grid& grid, F&& f) {
+  comm::barrier(grid.all());
+  const double start = comm::wtime();
+  f();
+  comm::barrier(grid.all());
+  return comm::wtime() - start;
+}
+
+void check_sizes(index_t n, index_t block) {
+  if (n < 1) throw error(exit_code::usage, "the order N must be at least 1");
+  if (block < 1) throw error(exit_code::usage, "the block size must be at least 1");
+}
+
+// Every rank multiplies square matrices at once: the rate the same cores reach on the
+// operation that dominates the factorization.
+template <scalar T>
+double gemm_rate(const process_grid& grid, index_t order) {
+  std::vector<T> a(order * order), b(order * order), c(order * order);
+  for (index_t i = 0; i < order * order; ++i) {
+    a[i] = random_entry<T>(7, i, 0);
+    b[i] = random_entry<T>(8, i, 0);
+  }
+  std::vector<double> rates;
+  for (int rep = 0; rep < 3; ++rep) {
+    const double s = timed(grid, [&] {
+      blas::gemm(blas::op::none, blas::op::none, order, order, order, T(1), a.data(), order,
+                 b.data(), order, T(0), c.data(), order);
+    });
+    const double flops = 2.0 * order * order * order * (scalar_traits<T>::is_complex ? 4 : 1);
+    rates.push_back(flops * grid.size() / s * 1e-9);
+  }
+  return median(rates);
+}
+
+template <scalar T>
+bench_result bench_typed(const process_grid& grid, const bench_options& o) {
+  bench_result r;
+  dist_matrix<T> a(grid, o.n, o.n, o.block);
+  for (int rep = 0; rep < o.repeat; ++rep) {
+    a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
+    r.factor_seconds.push_back(timed(grid, [&] { factor(a); }));
+  }
+  r.factor_median = median(r.factor_seconds);
+  r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_median * 1e-9;
+  r.gemm_order = std::min<index_t>(o.n, 2048);
+  r.gemm_gflops = gemm_rate<T>(grid, r.gemm_order);
+  return r;
+}
+
+template <scalar T>
+demo_result demo_typed(const process_grid& grid, const demo_options& o) {
+  demo_result r;
+  const auto a_entry = [&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); };
+  const auto b_entry = [&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); };
+  dist_matrix<T> a(grid, o.n, o.n, o.block), b(grid, o.n, o.nrhs, o.block),
+      x(grid, o.n, o.nrhs, o.block);
+  r.generate_seconds = timed(grid, [&] {
+    a.fill(a_entry);
+    b.fill(b_entry);
+    x.fill(b_entry);
+  });
+  lu_result lu;
+  r.factor_seconds = timed(grid, [&] { lu = factor(a); });
+  r.first_zero_pivot = lu.first_zero_pivot;
+  r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_seconds * 1e-9;
+  r.solve_seconds = timed(grid, [&] { solve(a, lu.pivots, x); });
+  // The factors overwrote A; regenerate it instead of keeping a second copy.
+  r.check_seconds = timed(grid, [&] {
+    a.fill(a_entry);
+    r.backward_errors = backward_errors(a, x, b);
+  });
+  r.threshold = 10.0 * static_cast<double>(o.n) * epsilon<T>();
+  return r;
+}
+
+template <class R, class F>
+R by_type(const std::string& type, F&& f) {
+  R result;
+  if (!dispatch_scalar(type, [&](auto zero) { result = f(zero); }))
+    throw error(exit_code::usage, "unknown element type '" + type +
+                                      "' (float32, float64, complex64 or complex128)");
+  return result;
+}
+
+}  // namespace
+
+bench_result bench(const process_grid& grid, const bench_options& o) {
+  check_sizes(o.n, o.block);
+  if (o.repeat < 1) throw error(exit_code::usage, "--repeat must be at least 1");
+  return by_type<bench_result>(
+      o.type, [&]<class T>(T) { return bench_typed<T>(grid, o); });
+}
+
+demo_result demo(const process_grid& grid, const demo_options& o) {
+  check_sizes(o.n, o.block);
+  if (o.nrhs < 1) throw error(exit_code::usage, "the number of right-hand sides must be at least 1");
+  return by_type<demo_result>(o.type, [&]<class T>(T) { return demo_typed<T>(grid, o); });
+}
+
+}  // namespace gridlu::workflows

@@ -1,0 +1,55 @@
+// Glue between the command line and the library: each workflow runs one job on a grid
+// and returns its figures; printing is the CLI's business.
+#pragma once
+
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "gridlu/grid.hpp"
+
+namespace gridlu::workflows {
+
+// Default block size; see DEVELOPERS.md for the measurements behind it.
+inline constexpr index_t default_block = 128;
+
+struct bench_options {
+  index_t n = 4096;
+  index_t block = default_block;
+  std::string type = "float64";
+  std::uint64_t seed = 1;
+  int repeat = 1;
+};
+
+struct bench_result {
+  std::vector<double> factor_seconds;  // one per repetition
+  double factor_median = 0;
+  double gflops = 0;       // factorization, from the median time
+  double gemm_gflops = 0;  // the same ranks running GEMM at once, median of three
+  index_t gemm_order = 0;
+};
+
+// Factors a generated matrix in memory (no files) and measures the GEMM rate of the
+// same ranks in the same run.
+bench_result bench(const process_grid& grid, const bench_options& options);
+
+struct demo_options {
+  index_t n = 3000;
+  index_t nrhs = 4;
+  index_t block = default_block;
+  std::string type = "float64";
+  std::uint64_t seed = 1;
+};
+
+struct demo_result {
+  double generate_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0;
+  double gflops = 0;
+  std::vector<double> backward_errors;  // one per right-hand side
+  double threshold = 0;                 // acceptable backward error for the type
+  index_t first_zero_pivot = -1;
+};
+
+// Generates a random system A X = B, factors, solves and checks the backward error.
+demo_result demo(const process_grid& grid, const demo_options& options);
+
+}  // namespace gridlu::workflows
