@@ -1,0 +1,166 @@
+// The distributed LU and solve against LAPACK's ?getrf (OpenBLAS) on a gathered copy,
+// and against published properties of Wilkinson's growth matrix.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <cstdint>
+
+#include "gridlu/generate.hpp"
+#include "gridlu/kernels.hpp"
+#include "gridlu/lu.hpp"
+#include "support.hpp"
+
+namespace {
+
+using namespace gridlu;
+using namespace gridlu::testing_support;
+
+template <class T>
+class Lu : public ::testing::Test {};
+TYPED_TEST_SUITE(Lu, scalar_types);
+
+// What LAPACK's ?getrf (OpenBLAS) makes of a column-major n x n matrix.
+template <class T>
+struct reference_lu {
+  std::vector<T> factors;
+  std::vector<std::int32_t> ipiv;
+  int info;
+};
+template <class T>
+reference_lu<T> lapack_lu(std::vector<T> a, index_t n) {
+  std::vector<std::int32_t> ipiv(static_cast<std::size_t>(n));
+  const int info = blas::lapack_getrf<T>(n, n, a.data(), n, ipiv.data());
+  return {std::move(a), std::move(ipiv), info};
+}
+
+template <class T>
+double max_row_sum(const std::vector<T>& a, index_t m, index_t n) {
+  double best = 0;
+  for (index_t i = 0; i < m; ++i) {
+    double s = 0;
+    for (index_t j = 0; j < n; ++j) s += std::abs(a[i + j * m]);
+    best = std::max(best, s);
+  }
+  return best;
+}
+
+// Worst normwise backward error over the columns of x, computed on one rank in long
+// double straight from the definition, independent of gridlu's accuracy code.
+template <class T>
+double worst_backward_error(const std::vector<T>& a, const std::vector<T>& x,
+                            const std::vector<T>& b, index_t n, index_t k) {
+  using wide = std::conditional_t<scalar_traits<T>::is_complex, std::complex<long double>, long double>;
+  const double anorm = max_row_sum(a, n, n);
+  double worst = 0;
+  for (index_t c = 0; c < k; ++c) {
+    double r = 0, xn = 0, bn = 0;
+    for (index_t i = 0; i < n; ++i) {
+      wide s = static_cast<wide>(b[i + c * n]);
+      for (index_t j = 0; j < n; ++j) s -= static_cast<wide>(a[i + j * n]) * static_cast<wide>(x[j + c * n]);
+      r = std::max(r, static_cast<double>(std::abs(s)));
+      xn = std::max(xn, static_cast<double>(std::abs(x[i + c * n])));
+      bn = std::max(bn, static_cast<double>(std::abs(b[i + c * n])));
+    }
+    worst = std::max(worst, r / (anorm * xn + bn));
+  }
+  return worst;
+}
+
+TYPED_TEST(Lu, PivotsAndFactorsMatchLapackAndSolvesAreBackwardStable) {
+  using T = TypeParam;
+  const double eps = epsilon<T>();
+  for (const auto shape : shapes_for_world()) {
+    const process_grid grid(MPI_COMM_WORLD, shape);
+    for (const index_t n : {1, 2, 7, 64, 100, 257})
+      for (const index_t nb : {1, 3, 16, 64}) {
+        SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
+                                          << " nb=" << nb);
+        const std::uint64_t seed = 1000 + 7 * n + nb;
+        const auto entry = [&](index_t i, index_t j) { return random_entry<T>(seed, i, j); };
+        dist_matrix<T> a(grid, n, n, nb);
+        a.fill(entry);
+        const auto original = a.gather();
+        const auto lu = factor(a);
+        const auto ours = a.gather();
+        if (is_root()) {
+          const auto ref = lapack_lu(original, n);
+          EXPECT_EQ(lu.first_zero_pivot + 1, ref.info);
+          for (index_t i = 0; i < n; ++i) ASSERT_EQ(lu.pivots[i], ref.ipiv[i] - 1) << "row " << i;
+          double diff = 0;
+          for (std::size_t e = 0; e < ours.size(); ++e)
+            diff = std::max(diff, static_cast<double>(std::abs(ours[e] - ref.factors[e])));
+          EXPECT_LE(diff, n * eps * max_row_sum(original, n, n));
+        }
+        for (const index_t k : {1, 5}) {
+          dist_matrix<T> b(grid, n, k, nb), x(grid, n, k, nb);
+          const auto rhs = [&](index_t i, index_t j) { return random_entry<T>(seed + 1, i, j); };
+          b.fill(rhs);
+          x.fill(rhs);
+          solve(a, lu.pivots, x);
+          const auto xs = x.gather(), bs = b.gather();
+          if (is_root()) {
+            EXPECT_LE(worst_backward_error(original, xs, bs, n, k), 10 * n * eps) << "k=" << k;
+          }
+        }
+      }
+  }
+}
+
+// Wilkinson's growth matrix: 1 on the diagonal, -1 below it, 1 in the last column.
+// Partial pivoting makes no interchange and the last pivot is 2^(n-1) (Wilkinson 1961;
+// Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed., section 9.4). Every
+// subdiagonal entry ties with the diagonal, so this also checks ties go to the top row.
+TYPED_TEST(Lu, WilkinsonGrowthMatrixHasNoInterchangeAndLastPivotTwoToTheNMinusOne) {
+  using T = TypeParam;
+  for (const auto shape : shapes_for_world()) {
+    const process_grid grid(MPI_COMM_WORLD, shape);
+    for (const index_t n : {2, 7, 64, 100})
+      for (const index_t nb : {1, 3, 16}) {
+        SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
+                                          << " nb=" << nb);
+        dist_matrix<T> a(grid, n, n, nb);
+        a.fill([&](index_t i, index_t j) {
+          return T(j == n - 1 || i == j ? 1 : (i > j ? -1 : 0));
+        });
+        const auto lu = factor(a);
+        const auto f = a.gather();
+        if (!is_root()) continue;
+        EXPECT_EQ(lu.first_zero_pivot, -1);
+        for (index_t i = 0; i < n; ++i) ASSERT_EQ(lu.pivots[i], i);
+        EXPECT_EQ(f[(n - 1) + (n - 1) * n], T(std::ldexp(real_t<T>(1), static_cast<int>(n - 1))));
+      }
+  }
+}
+
+// Exactly singular matrices: the factorization runs to the end and reports the first
+// zero pivot's column, which must be the one LAPACK's ?getrf reports as info. The equal
+// rows lead column 0 with a 2, so the first step's multiplier is exactly 1 and one of
+// them becomes exactly zero in any correct arithmetic (with or without FMA).
+TYPED_TEST(Lu, SingularMatricesReportTheColumnLapackReports) {
+  using T = TypeParam;
+  for (const auto shape : shapes_for_world()) {
+    const process_grid grid(MPI_COMM_WORLD, shape);
+    for (const index_t n : {2, 7, 64, 100})
+      for (const index_t nb : {1, 3, 16, 64})
+        for (const bool zero_column : {true, false}) {
+          SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
+                                            << " nb=" << nb << (zero_column ? " zero column" : " equal rows"));
+          const index_t special = (n - 1) / 2, twin = n - 1;
+          dist_matrix<T> a(grid, n, n, nb);
+          a.fill([&](index_t i, index_t j) {
+            if (zero_column && j == special) return T(0);
+            if (!zero_column && (i == twin || i == special))
+              return j == 0 ? T(2) : random_entry<T>(5, special, j);
+            return random_entry<T>(5, i, j);
+          });
+          const auto original = a.gather();
+          const auto lu = factor(a);
+          if (!is_root()) continue;
+          const auto ref = lapack_lu(original, n);
+          EXPECT_GT(ref.info, 0);
+          EXPECT_EQ(lu.first_zero_pivot + 1, ref.info);
+        }
+  }
+}
+
+}  // namespace
