@@ -50,8 +50,8 @@ TYPED_TEST(Accuracy, BackwardErrorOfAPerturbedSolutionHasItsClosedForm) {
     b.fill([](index_t, index_t) { return T(1); });
     x.fill([](index_t, index_t j) { return T(0.5 + std::ldexp(1.0, -10) * j); });
     const auto errors = backward_errors(a, x, b);
-    ASSERT_EQ(errors.size(), std::size_t{k});
-    for (index_t j = 0; j < k; ++j) {
+    EXPECT_EQ(errors.size(), std::size_t{k});
+    for (index_t j = 0; j < std::min<index_t>(k, static_cast<index_t>(errors.size())); ++j) {
       const double d = std::ldexp(1.0, -10) * j;
       EXPECT_NEAR(errors[j], 2 * d / (2 * (0.5 + d) + 1), 1e-6 * (1 + errors[j])) << "column " << j;
     }
