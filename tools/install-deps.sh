@@ -2,7 +2,8 @@
 # Installs the Debian packages gridlu needs to build, test and benchmark.
 # Idempotent: does nothing when every package is already installed.
 set -eu
-packages="build-essential cmake pkg-config git
+# openssh-client: OpenMPI looks for ssh at start-up even for runs on one machine.
+packages="build-essential cmake pkg-config openssh-client
   openmpi-bin libopenmpi-dev
   libopenblas-dev liblapacke-dev
   libhdf5-openmpi-dev hdf5-tools

@@ -11,7 +11,7 @@
 namespace gridlu::workflows {
 
 // Default block size; see DEVELOPERS.md for the measurements behind it.
-inline constexpr index_t default_block = 128;
+inline constexpr index_t default_block = 64;
 
 struct bench_options {
   index_t n = 4096;
