@@ -25,12 +25,14 @@ constexpr double unit_interval(std::uint64_t h) {
 // Entry (i, j) of the random matrix of `seed`: real and imaginary parts uniform in [-1, 1).
 template <scalar T>
 T random_entry(std::uint64_t seed, index_t i, index_t j) {
-  const std::uint64_t h = detail::mix64(detail::mix64(detail::mix64(seed) ^ static_cast<std::uint64_t>(i)) ^
-                                        static_cast<std::uint64_t>(j) * 0x9e3779b97f4a7c15ULL);
+  const std::uint64_t h =
+      detail::mix64(detail::mix64(detail::mix64(seed) ^ static_cast<std::uint64_t>(i)) ^
+                    static_cast<std::uint64_t>(j) * 0x9e3779b97f4a7c15ULL);
   const auto re = static_cast<real_t<T>>(detail::unit_interval(h));
   if constexpr (scalar_traits<T>::is_complex)
     return T(re, static_cast<real_t<T>>(detail::unit_interval(detail::mix64(h))));
-  else return re;
+  else
+    return re;
 }
 
 }  // namespace gridlu

@@ -107,8 +107,8 @@ candidate best(const communicator& c, candidate mine);
 
 // All-to-all with per-rank element counts; displacements follow the rank order.
 template <class T>
-void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts,
-                T* recv, const std::vector<int>& recv_counts);
+void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts, T* recv,
+                const std::vector<int>& recv_counts);
 
 // Concatenates every rank's block on root, in rank order; counts known on root.
 template <class T>

@@ -20,8 +20,8 @@ void gemm(op opa, op opb, index_t m, index_t n, index_t k, T alpha, const T* a, 
 
 // B = alpha inv(A) B with A an m x m triangle (left side, no transpose).
 template <scalar T>
-void trsm_left(triangle uplo, diagonal diag, index_t m, index_t n, T alpha, const T* a,
-               index_t lda, T* b, index_t ldb);
+void trsm_left(triangle uplo, diagonal diag, index_t m, index_t n, T alpha, const T* a, index_t lda,
+               T* b, index_t ldb);
 
 // A += alpha x y^T (unconjugated for complex).
 template <scalar T>

@@ -39,8 +39,10 @@ public:
     const index_t cycles = b / procs_;
     const int r = static_cast<int>(b % procs_);
     index_t count = cycles * nb_;
-    if (p < r) count += nb_;
-    else if (p == r) count += g % nb_;
+    if (p < r)
+      count += nb_;
+    else if (p == r)
+      count += g % nb_;
     return count;
   }
   constexpr index_t local_extent(int p) const { return local_begin(p, n_); }

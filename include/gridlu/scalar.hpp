@@ -40,7 +40,9 @@ template <class T>
 using real_t = typename scalar_traits<T>::real;
 
 template <class T>
-concept scalar = requires { typename scalar_traits<T>::real; };
+concept scalar = requires {
+  typename scalar_traits<T>::real;
+};
 
 // Unit roundoff-sized machine epsilon of the type (LAPACK's xLAMCH('E') is half this).
 template <scalar T>
@@ -51,8 +53,10 @@ constexpr real_t<T> epsilon() {
 // |Re| + |Im|: the magnitude LAPACK's pivot search compares for complex types.
 template <scalar T>
 real_t<T> abs1(T x) {
-  if constexpr (scalar_traits<T>::is_complex) return std::abs(x.real()) + std::abs(x.imag());
-  else return std::abs(x);
+  if constexpr (scalar_traits<T>::is_complex)
+    return std::abs(x.real()) + std::abs(x.imag());
+  else
+    return std::abs(x);
 }
 
 // Flops of an LU factorization of order n: 2/3 n^3 real operations, four times as many
@@ -66,11 +70,16 @@ double lu_flops(double n) {
 // Calls f with a value of each element type named by `type` ("float64", ...).
 template <class F>
 bool dispatch_scalar(std::string_view type, F&& f) {
-  if (type == scalar_traits<float>::name) f(float{});
-  else if (type == scalar_traits<double>::name) f(double{});
-  else if (type == scalar_traits<std::complex<float>>::name) f(std::complex<float>{});
-  else if (type == scalar_traits<std::complex<double>>::name) f(std::complex<double>{});
-  else return false;
+  if (type == scalar_traits<float>::name)
+    f(float{});
+  else if (type == scalar_traits<double>::name)
+    f(double{});
+  else if (type == scalar_traits<std::complex<float>>::name)
+    f(std::complex<float>{});
+  else if (type == scalar_traits<std::complex<double>>::name)
+    f(std::complex<double>{});
+  else
+    return false;
   return true;
 }
 

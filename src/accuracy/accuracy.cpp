@@ -74,11 +74,11 @@ std::vector<double> backward_errors(const dist_matrix<T>& a, const dist_matrix<T
   return errors;
 }
 
-#define INSTANTIATE(T)                                                                    \
-  template real_t<T> norm_inf<T>(const dist_matrix<T>&);                                  \
-  template std::vector<real_t<T>> column_norms_inf<T>(const dist_matrix<T>&);             \
-  template void subtract_product<T>(const dist_matrix<T>&, const dist_matrix<T>&,         \
-                                    dist_matrix<T>&);                                     \
+#define INSTANTIATE(T)                                                                          \
+  template real_t<T> norm_inf<T>(const dist_matrix<T>&);                                        \
+  template std::vector<real_t<T>> column_norms_inf<T>(const dist_matrix<T>&);                   \
+  template void subtract_product<T>(const dist_matrix<T>&, const dist_matrix<T>&,               \
+                                    dist_matrix<T>&);                                           \
   template std::vector<double> backward_errors<T>(const dist_matrix<T>&, const dist_matrix<T>&, \
                                                   const dist_matrix<T>&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)

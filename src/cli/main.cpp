@@ -36,8 +36,8 @@ process_grid make_grid(const common_options& o) {
   int ranks = 0;
   MPI_Comm_size(MPI_COMM_WORLD, &ranks);
   blas::set_threads(o.blas_threads);
-  return process_grid(MPI_COMM_WORLD, o.grid.empty() ? square_grid_shape(ranks)
-                                                     : parse_grid_shape(o.grid));
+  return process_grid(MPI_COMM_WORLD,
+                      o.grid.empty() ? square_grid_shape(ranks) : parse_grid_shape(o.grid));
 }
 
 void write_report(const std::string& path, const nlohmann::json& j) {
@@ -88,8 +88,8 @@ int run_demo(const workflows::demo_options& o, const common_options& c) {
   if (grid.rank() == 0) {
     std::printf("gridlu demo: random %s system, n = %lld, %lld right-hand side(s)\n",
                 o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.nrhs));
-    std::printf("  grid %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
-                grid.size(), static_cast<long long>(o.block));
+    std::printf("  grid %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(), grid.size(),
+                static_cast<long long>(o.block));
     std::printf("  generate  %9.3f s\n  factor    %9.3f s   %.2f GFLOP/s\n", r.generate_seconds,
                 r.factor_seconds, r.gflops);
     std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds, r.check_seconds);
@@ -133,20 +133,22 @@ int main(int argc, char** argv) {
   common_options common;
   workflows::bench_options bench;
   auto* bench_cmd = app.add_subcommand(
-      "bench", "time the LU of a generated matrix in memory against the GEMM rate of the same ranks");
+      "bench",
+      "time the LU of a generated matrix in memory against the GEMM rate of the same ranks");
   bench_cmd->add_option("--n", bench.n, "order of the matrix")->capture_default_str();
   bench_cmd->add_option("--block", bench.block, "block size nb")->capture_default_str();
   bench_cmd->add_option("--type", bench.type, "float32, float64, complex64 or complex128")
       ->capture_default_str();
-  bench_cmd->add_option("--seed", bench.seed, "seed of the generated matrix")->capture_default_str();
+  bench_cmd->add_option("--seed", bench.seed, "seed of the generated matrix")
+      ->capture_default_str();
   bench_cmd->add_option("--repeat", bench.repeat, "factorizations to time (median is reported)")
       ->capture_default_str();
   add_common(bench_cmd, common);
   bench_cmd->footer("Example:\n  mpiexec -n 2 gridlu bench --n 8192 --grid 1x2 --repeat 3");
 
   workflows::demo_options demo;
-  auto* demo_cmd = app.add_subcommand(
-      "demo", "solve a generated random system and report its backward error");
+  auto* demo_cmd =
+      app.add_subcommand("demo", "solve a generated random system and report its backward error");
   demo_cmd->add_option("--n", demo.n, "number of unknowns")->capture_default_str();
   demo_cmd->add_option("--rhs", demo.nrhs, "number of right-hand sides")->capture_default_str();
   demo_cmd->add_option("--block", demo.block, "block size nb")->capture_default_str();

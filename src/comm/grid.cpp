@@ -22,14 +22,22 @@ void check(int rc, const char* what) {
 
 template <class T>
 MPI_Datatype mpi_type() {
-  if constexpr (std::is_same_v<T, float>) return MPI_FLOAT;
-  else if constexpr (std::is_same_v<T, double>) return MPI_DOUBLE;
-  else if constexpr (std::is_same_v<T, std::complex<float>>) return MPI_CXX_FLOAT_COMPLEX;
-  else if constexpr (std::is_same_v<T, std::complex<double>>) return MPI_CXX_DOUBLE_COMPLEX;
-  else if constexpr (std::is_same_v<T, std::int64_t>) return MPI_INT64_T;
-  else if constexpr (std::is_same_v<T, int>) return MPI_INT;
-  else if constexpr (std::is_same_v<T, char>) return MPI_CHAR;
-  else static_assert(sizeof(T) == 0, "no MPI type for T");
+  if constexpr (std::is_same_v<T, float>)
+    return MPI_FLOAT;
+  else if constexpr (std::is_same_v<T, double>)
+    return MPI_DOUBLE;
+  else if constexpr (std::is_same_v<T, std::complex<float>>)
+    return MPI_CXX_FLOAT_COMPLEX;
+  else if constexpr (std::is_same_v<T, std::complex<double>>)
+    return MPI_CXX_DOUBLE_COMPLEX;
+  else if constexpr (std::is_same_v<T, std::int64_t>)
+    return MPI_INT64_T;
+  else if constexpr (std::is_same_v<T, int>)
+    return MPI_INT;
+  else if constexpr (std::is_same_v<T, char>)
+    return MPI_CHAR;
+  else
+    static_assert(sizeof(T) == 0, "no MPI type for T");
 }
 
 int to_int(index_t count) {
@@ -119,9 +127,9 @@ template <class T>
 void broadcast(const communicator& c, T* data, index_t count, int root) {
   constexpr index_t chunk = index_t{1} << 28;
   for (index_t done = 0; done < count; done += chunk)
-    check(MPI_Bcast(data + done, to_int(std::min(chunk, count - done)), mpi_type<T>(), root,
-                    c.get()),
-          "MPI_Bcast");
+    check(
+        MPI_Bcast(data + done, to_int(std::min(chunk, count - done)), mpi_type<T>(), root, c.get()),
+        "MPI_Bcast");
 }
 
 template <class T>
@@ -156,11 +164,11 @@ candidate best(const communicator& c, candidate mine) {
 }
 
 template <class T>
-void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts,
-                T* recv, const std::vector<int>& recv_counts) {
+void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts, T* recv,
+                const std::vector<int>& recv_counts) {
   const auto sd = displacements(send_counts), rd = displacements(recv_counts);
-  check(MPI_Alltoallv(send, send_counts.data(), sd.data(), mpi_type<T>(), recv,
-                      recv_counts.data(), rd.data(), mpi_type<T>(), c.get()),
+  check(MPI_Alltoallv(send, send_counts.data(), sd.data(), mpi_type<T>(), recv, recv_counts.data(),
+                      rd.data(), mpi_type<T>(), c.get()),
         "MPI_Alltoallv");
 }
 
@@ -182,8 +190,8 @@ void scatter(const communicator& c, const T* send, const std::vector<index_t>& c
   if (c.rank() == root)
     for (index_t v : counts) n.push_back(to_int(v));
   const auto d = displacements(n);
-  check(MPI_Scatterv(send, n.data(), d.data(), mpi_type<T>(), recv, to_int(count),
-                     mpi_type<T>(), root, c.get()),
+  check(MPI_Scatterv(send, n.data(), d.data(), mpi_type<T>(), recv, to_int(count), mpi_type<T>(),
+                     root, c.get()),
         "MPI_Scatterv");
 }
 
@@ -216,15 +224,15 @@ void agree(const communicator& c, std::exception_ptr mine) {
 
 #define GRIDLU_COMM_TYPES(X) \
   X(float) X(double) X(std::complex<float>) X(std::complex<double>) X(std::int64_t) X(int)
-#define GRIDLU_COMM_INSTANTIATE(T)                                                          \
-  template void broadcast<T>(const communicator&, T*, index_t, int);                        \
-  template void send<T>(const communicator&, const T*, index_t, int);                       \
-  template void receive<T>(const communicator&, T*, index_t, int);                          \
-  template void all_to_all<T>(const communicator&, const T*, const std::vector<int>&, T*,   \
-                              const std::vector<int>&);                                     \
-  template void gather<T>(const communicator&, const T*, index_t, T*,                       \
-                          const std::vector<index_t>&, int);                                \
-  template void scatter<T>(const communicator&, const T*, const std::vector<index_t>&, T*,  \
+#define GRIDLU_COMM_INSTANTIATE(T)                                                                 \
+  template void broadcast<T>(const communicator&, T*, index_t, int);                               \
+  template void send<T>(const communicator&, const T*, index_t, int);                              \
+  template void receive<T>(const communicator&, T*, index_t, int);                                 \
+  template void all_to_all<T>(const communicator&, const T*, const std::vector<int>&, T*,          \
+                              const std::vector<int>&);                                            \
+  template void gather<T>(const communicator&, const T*, index_t, T*, const std::vector<index_t>&, \
+                          int);                                                                    \
+  template void scatter<T>(const communicator&, const T*, const std::vector<index_t>&, T*,         \
                            index_t, int);
 GRIDLU_COMM_TYPES(GRIDLU_COMM_INSTANTIATE)
 #undef GRIDLU_COMM_INSTANTIATE

@@ -44,7 +44,8 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
     if (rows.owner(dest[s]) == me) recv_counts[rows.owner(source[s])] += w;
   }
   std::vector<T> sent, received;
-  sent.reserve(static_cast<std::size_t>(std::accumulate(send_counts.begin(), send_counts.end(), 0)));
+  sent.reserve(
+      static_cast<std::size_t>(std::accumulate(send_counts.begin(), send_counts.end(), 0)));
   for (int p = 0; p < procs; ++p)
     for (const auto s : moves)
       if (rows.owner(source[s]) == me && rows.owner(dest[s]) == p) {
@@ -52,7 +53,8 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
         for (const auto& c : columns)
           for (index_t lj = c.begin; lj < c.end; ++lj) sent.push_back(*a.at(li, lj));
       }
-  received.resize(static_cast<std::size_t>(std::accumulate(recv_counts.begin(), recv_counts.end(), 0)));
+  received.resize(
+      static_cast<std::size_t>(std::accumulate(recv_counts.begin(), recv_counts.end(), 0)));
   comm::all_to_all(a.grid().col(), sent.data(), send_counts, received.data(), recv_counts);
   auto next = received.cbegin();
   for (int p = 0; p < procs; ++p)
@@ -64,8 +66,8 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
       }
 }
 
-#define INSTANTIATE(T)                                                                      \
-  template void interchange_rows<T>(dist_matrix<T>&, index_t, std::span<const index_t>,      \
+#define INSTANTIATE(T)                                                                  \
+  template void interchange_rows<T>(dist_matrix<T>&, index_t, std::span<const index_t>, \
                                     std::span<const column_range>);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE

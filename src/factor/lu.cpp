@@ -19,8 +19,8 @@ using blas::triangle;
 // to the column, then interchange, scaling and a rank-1 update of the panel's remaining
 // columns. pivots[t] gets the pivot row of column j0 + t; a zero pivot sets zero_column.
 template <scalar T>
-void factor_panel(dist_matrix<T>& a, index_t j0, index_t jb, index_t lc0,
-                  std::span<index_t> pivots, index_t& zero_column) {
+void factor_panel(dist_matrix<T>& a, index_t j0, index_t jb, index_t lc0, std::span<index_t> pivots,
+                  index_t& zero_column) {
   const auto& rows = a.layout().rows;
   const auto& col = a.grid().col();
   const int me = a.grid().myrow();

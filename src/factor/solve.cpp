@@ -53,8 +53,8 @@ void sweep(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part) {
       for (index_t c = 0; c < jb; ++c)
         std::copy_n(lu.at(first, lck + c), count, column.data() + c * count);
     comm::broadcast(grid.row(), column.data(), count * jb, pc);
-    blas::gemm(op::none, op::none, count, nrhs, jb, T(-1), column.data(), count, solved.data(),
-               jb, T(1), b.at(first, 0), b.ld());
+    blas::gemm(op::none, op::none, count, nrhs, jb, T(-1), column.data(), count, solved.data(), jb,
+               T(1), b.at(first, 0), b.ld());
   }
 }
 

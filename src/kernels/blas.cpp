@@ -27,59 +27,58 @@ template <>
 void gemm<float>(op opa, op opb, index_t m, index_t n, index_t k, float alpha, const float* a,
                  index_t lda, const float* b, index_t ldb, float beta, float* c, index_t ldc) {
   if (empty(m, n)) return;
-  cblas_sgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), alpha, a,
-              ld(lda), b, ld(ldb), beta, c, ld(ldc));
+  cblas_sgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), alpha, a, ld(lda),
+              b, ld(ldb), beta, c, ld(ldc));
 }
 template <>
-void gemm<double>(op opa, op opb, index_t m, index_t n, index_t k, double alpha,
-                  const double* a, index_t lda, const double* b, index_t ldb, double beta,
-                  double* c, index_t ldc) {
+void gemm<double>(op opa, op opb, index_t m, index_t n, index_t k, double alpha, const double* a,
+                  index_t lda, const double* b, index_t ldb, double beta, double* c, index_t ldc) {
   if (empty(m, n)) return;
-  cblas_dgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), alpha, a,
-              ld(lda), b, ld(ldb), beta, c, ld(ldc));
+  cblas_dgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), alpha, a, ld(lda),
+              b, ld(ldb), beta, c, ld(ldc));
 }
 template <>
-void gemm<cf>(op opa, op opb, index_t m, index_t n, index_t k, cf alpha, const cf* a,
-              index_t lda, const cf* b, index_t ldb, cf beta, cf* c, index_t ldc) {
+void gemm<cf>(op opa, op opb, index_t m, index_t n, index_t k, cf alpha, const cf* a, index_t lda,
+              const cf* b, index_t ldb, cf beta, cf* c, index_t ldc) {
   if (empty(m, n)) return;
-  cblas_cgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), &alpha, a,
-              ld(lda), b, ld(ldb), &beta, c, ld(ldc));
+  cblas_cgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), &alpha, a, ld(lda),
+              b, ld(ldb), &beta, c, ld(ldc));
 }
 template <>
-void gemm<cd>(op opa, op opb, index_t m, index_t n, index_t k, cd alpha, const cd* a,
-              index_t lda, const cd* b, index_t ldb, cd beta, cd* c, index_t ldc) {
+void gemm<cd>(op opa, op opb, index_t m, index_t n, index_t k, cd alpha, const cd* a, index_t lda,
+              const cd* b, index_t ldb, cd beta, cd* c, index_t ldc) {
   if (empty(m, n)) return;
-  cblas_zgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), &alpha, a,
-              ld(lda), b, ld(ldb), &beta, c, ld(ldc));
+  cblas_zgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), &alpha, a, ld(lda),
+              b, ld(ldb), &beta, c, ld(ldc));
 }
 
 template <>
 void trsm_left<float>(triangle uplo, diagonal diag, index_t m, index_t n, float alpha,
                       const float* a, index_t lda, float* b, index_t ldb) {
   if (empty(m, n)) return;
-  cblas_strsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m),
-              bi(n), alpha, a, ld(lda), b, ld(ldb));
+  cblas_strsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m), bi(n),
+              alpha, a, ld(lda), b, ld(ldb));
 }
 template <>
 void trsm_left<double>(triangle uplo, diagonal diag, index_t m, index_t n, double alpha,
                        const double* a, index_t lda, double* b, index_t ldb) {
   if (empty(m, n)) return;
-  cblas_dtrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m),
-              bi(n), alpha, a, ld(lda), b, ld(ldb));
+  cblas_dtrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m), bi(n),
+              alpha, a, ld(lda), b, ld(ldb));
 }
 template <>
 void trsm_left<cf>(triangle uplo, diagonal diag, index_t m, index_t n, cf alpha, const cf* a,
                    index_t lda, cf* b, index_t ldb) {
   if (empty(m, n)) return;
-  cblas_ctrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m),
-              bi(n), &alpha, a, ld(lda), b, ld(ldb));
+  cblas_ctrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m), bi(n),
+              &alpha, a, ld(lda), b, ld(ldb));
 }
 template <>
 void trsm_left<cd>(triangle uplo, diagonal diag, index_t m, index_t n, cd alpha, const cd* a,
                    index_t lda, cd* b, index_t ldb) {
   if (empty(m, n)) return;
-  cblas_ztrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m),
-              bi(n), &alpha, a, ld(lda), b, ld(ldb));
+  cblas_ztrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m), bi(n),
+              &alpha, a, ld(lda), b, ld(ldb));
 }
 
 template <>
@@ -89,8 +88,8 @@ void rank1<float>(index_t m, index_t n, float alpha, const float* x, const float
   cblas_sger(CblasColMajor, bi(m), bi(n), alpha, x, 1, y, 1, a, ld(lda));
 }
 template <>
-void rank1<double>(index_t m, index_t n, double alpha, const double* x, const double* y,
-                   double* a, index_t lda) {
+void rank1<double>(index_t m, index_t n, double alpha, const double* x, const double* y, double* a,
+                   index_t lda) {
   if (empty(m, n)) return;
   cblas_dger(CblasColMajor, bi(m), bi(n), alpha, x, 1, y, 1, a, ld(lda));
 }
@@ -141,8 +140,8 @@ int lapack_getrf<cf>(index_t m, index_t n, cf* a, index_t lda, std::int32_t* ipi
 }
 template <>
 int lapack_getrf<cd>(index_t m, index_t n, cd* a, index_t lda, std::int32_t* ipiv) {
-  return LAPACKE_zgetrf(LAPACK_COL_MAJOR, bi(m), bi(n),
-                        reinterpret_cast<lapack_complex_double*>(a), ld(lda), ipiv);
+  return LAPACKE_zgetrf(LAPACK_COL_MAJOR, bi(m), bi(n), reinterpret_cast<lapack_complex_double*>(a),
+                        ld(lda), ipiv);
 }
 
 void set_threads(int threads) { openblas_set_num_threads(threads); }

@@ -82,8 +82,7 @@ void dist_matrix<T>::scatter(const std::vector<T>& whole, int root) {
     }
   }
   std::vector<T> mine(static_cast<std::size_t>(local_rows_ * local_cols_));
-  comm::scatter(all, packed.data(), counts, mine.data(), static_cast<index_t>(mine.size()),
-                root);
+  comm::scatter(all, packed.data(), counts, mine.data(), static_cast<index_t>(mine.size()), root);
   for (index_t lj = 0; lj < local_cols_; ++lj)
     std::copy_n(mine.data() + lj * local_rows_, local_rows_, at(0, lj));
 }

@@ -96,8 +96,8 @@ template <class R, class F>
 R by_type(const std::string& type, F&& f) {
   R result;
   if (!dispatch_scalar(type, [&](auto zero) { result = f(zero); }))
-    throw error(exit_code::usage, "unknown element type '" + type +
-                                      "' (float32, float64, complex64 or complex128)");
+    throw error(exit_code::usage,
+                "unknown element type '" + type + "' (float32, float64, complex64 or complex128)");
   return result;
 }
 
@@ -106,13 +106,13 @@ R by_type(const std::string& type, F&& f) {
 bench_result bench(const process_grid& grid, const bench_options& o) {
   check_sizes(o.n, o.block);
   if (o.repeat < 1) throw error(exit_code::usage, "--repeat must be at least 1");
-  return by_type<bench_result>(
-      o.type, [&]<class T>(T) { return bench_typed<T>(grid, o); });
+  return by_type<bench_result>(o.type, [&]<class T>(T) { return bench_typed<T>(grid, o); });
 }
 
 demo_result demo(const process_grid& grid, const demo_options& o) {
   check_sizes(o.n, o.block);
-  if (o.nrhs < 1) throw error(exit_code::usage, "the number of right-hand sides must be at least 1");
+  if (o.nrhs < 1)
+    throw error(exit_code::usage, "the number of right-hand sides must be at least 1");
   return by_type<demo_result>(o.type, [&]<class T>(T) { return demo_typed<T>(grid, o); });
 }
 

@@ -88,7 +88,8 @@ TEST(Agreement, OneFailingRankMakesEveryRankThrowItsError) {
   }
   // Several failures: the lowest failing rank's message wins; no failure: no throw.
   try {
-    comm::together(grid.all(), [&] { throw error(exit_code::usage, "from " + std::to_string(world_rank())); });
+    comm::together(grid.all(),
+                   [&] { throw error(exit_code::usage, "from " + std::to_string(world_rank())); });
     ADD_FAILURE();
   } catch (const error& e) {
     EXPECT_STREQ(e.what(), "from 0");
@@ -120,7 +121,8 @@ TYPED_TEST(Distribution, FillGatherScatterAgreeWithGlobalIndices) {
           b.scatter(whole);
           bool same = true;
           for (index_t lj = 0; lj < b.local_cols(); ++lj)
-            for (index_t li = 0; li < b.local_rows(); ++li) same = same && *b.at(li, lj) == *a.at(li, lj);
+            for (index_t li = 0; li < b.local_rows(); ++li)
+              same = same && *b.at(li, lj) == *a.at(li, lj);
           EXPECT_TRUE(same) << "scatter did not restore rank " << world_rank() << "'s part";
         }
   }

@@ -50,14 +50,16 @@ double max_row_sum(const std::vector<T>& a, index_t m, index_t n) {
 template <class T>
 double worst_backward_error(const std::vector<T>& a, const std::vector<T>& x,
                             const std::vector<T>& b, index_t n, index_t k) {
-  using wide = std::conditional_t<scalar_traits<T>::is_complex, std::complex<long double>, long double>;
+  using wide =
+      std::conditional_t<scalar_traits<T>::is_complex, std::complex<long double>, long double>;
   const double anorm = max_row_sum(a, n, n);
   double worst = 0;
   for (index_t c = 0; c < k; ++c) {
     double r = 0, xn = 0, bn = 0;
     for (index_t i = 0; i < n; ++i) {
       wide s = static_cast<wide>(b[i + c * n]);
-      for (index_t j = 0; j < n; ++j) s -= static_cast<wide>(a[i + j * n]) * static_cast<wide>(x[j + c * n]);
+      for (index_t j = 0; j < n; ++j)
+        s -= static_cast<wide>(a[i + j * n]) * static_cast<wide>(x[j + c * n]);
       r = std::max(r, static_cast<double>(std::abs(s)));
       xn = std::max(xn, static_cast<double>(std::abs(x[i + c * n])));
       bn = std::max(bn, static_cast<double>(std::abs(b[i + c * n])));
@@ -74,8 +76,8 @@ TYPED_TEST(Lu, PivotsAndFactorsMatchLapackAndSolvesAreBackwardStable) {
     const process_grid grid(MPI_COMM_WORLD, shape);
     for (const index_t n : {1, 2, 7, 64, 100, 257})
       for (const index_t nb : {1, 3, 16, 64}) {
-        SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
-                                          << " nb=" << nb);
+        SCOPED_TRACE(::testing::Message()
+                     << "grid " << shape.p << "x" << shape.q << " n=" << n << " nb=" << nb);
         const std::uint64_t seed = 1000 + 7 * n + nb;
         const auto entry = [&](index_t i, index_t j) { return random_entry<T>(seed, i, j); };
         dist_matrix<T> a(grid, n, n, nb);
@@ -122,12 +124,11 @@ TYPED_TEST(Lu, WilkinsonGrowthMatrixHasNoInterchangeAndLastPivotTwoToTheNMinusOn
     const process_grid grid(MPI_COMM_WORLD, shape);
     for (const index_t n : {2, 7, 64, 100})
       for (const index_t nb : {1, 3, 16}) {
-        SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
-                                          << " nb=" << nb);
+        SCOPED_TRACE(::testing::Message()
+                     << "grid " << shape.p << "x" << shape.q << " n=" << n << " nb=" << nb);
         dist_matrix<T> a(grid, n, n, nb);
-        a.fill([&](index_t i, index_t j) {
-          return T(j == n - 1 || i == j ? 1 : (i > j ? -1 : 0));
-        });
+        a.fill(
+            [&](index_t i, index_t j) { return T(j == n - 1 || i == j ? 1 : (i > j ? -1 : 0)); });
         const auto lu = factor(a);
         const auto f = a.gather();
         if (!is_root()) continue;
@@ -151,8 +152,9 @@ TYPED_TEST(Lu, SingularMatricesReportTheColumnLapackReports) {
     for (const index_t n : {2, 7, 64, 100})
       for (const index_t nb : {1, 3, 16, 64})
         for (const bool zero_column : {true, false}) {
-          SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
-                                            << " nb=" << nb << (zero_column ? " zero column" : " equal rows"));
+          SCOPED_TRACE(::testing::Message()
+                       << "grid " << shape.p << "x" << shape.q << " n=" << n << " nb=" << nb
+                       << (zero_column ? " zero column" : " equal rows"));
           const index_t special = (n - 1) / 2, twin = n - 1;
           dist_matrix<T> a(grid, n, n, nb);
           a.fill([&](index_t i, index_t j) {
