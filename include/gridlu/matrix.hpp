@@ -3,6 +3,7 @@
 #pragma once
 
 #include <algorithm>
+#include <utility>
 #include <vector>
 
 #include "gridlu/grid.hpp"
@@ -32,6 +33,14 @@ public:
   // of the local part (li or lj one past the end) points at the end, never beyond it.
   T* at(index_t li, index_t lj) { return storage_.data() + offset(li, lj); }
   const T* at(index_t li, index_t lj) const { return storage_.data() + offset(li, lj); }
+
+  // Local storage of global entry (i, j), or nullptr when another rank owns it. Whole
+  // local blocks follow: the entries of a block are contiguous in each column.
+  const T* find(index_t i, index_t j) const {
+    const auto p = layout_.locate(i, j);
+    return p.prow == grid_->myrow() && p.pcol == grid_->mycol() ? at(p.lrow, p.lcol) : nullptr;
+  }
+  T* find(index_t i, index_t j) { return const_cast<T*>(std::as_const(*this).find(i, j)); }
 
   // Sets every local entry to f(i, j) of its global indices.
   template <class F>

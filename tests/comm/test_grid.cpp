@@ -124,6 +124,18 @@ TYPED_TEST(Distribution, FillGatherScatterAgreeWithGlobalIndices) {
             for (index_t li = 0; li < b.local_rows(); ++li)
               same = same && *b.at(li, lj) == *a.at(li, lj);
           EXPECT_TRUE(same) << "scatter did not restore rank " << world_rank() << "'s part";
+          // Access by global index: exactly one rank owns each entry, holding its value.
+          std::int64_t owners = 0;
+          bool found_right = true;
+          for (index_t j = 0; j < n; ++j)
+            for (index_t i = 0; i < m; ++i)
+              if (const T* e = a.find(i, j)) {
+                ++owners;
+                found_right = found_right && *e == random_entry<T>(3, i, j);
+              }
+          comm::sum(grid.all(), &owners, 1);
+          EXPECT_EQ(owners, m * n);
+          EXPECT_TRUE(found_right);
         }
   }
 }
