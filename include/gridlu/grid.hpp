@@ -97,6 +97,9 @@ void sum(const communicator& c, T* data, index_t count);
 template <class T>
 void max(const communicator& c, T* data, index_t count);
 
+// Bitwise exclusive or of unsigned 64-bit words (order-independent checksums).
+void bit_xor(const communicator& c, std::uint64_t* data, index_t count);
+
 // Pivot candidate: largest magnitude wins, equal magnitudes go to the smaller row,
 // which is how LAPACK's first-maximum search breaks ties.
 struct candidate {

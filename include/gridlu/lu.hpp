@@ -2,6 +2,7 @@
 // solve with its factors.
 #pragma once
 
+#include <functional>
 #include <span>
 #include <vector>
 
@@ -18,10 +19,15 @@ struct lu_result {
   index_t first_zero_pivot = -1;
 };
 
+struct lu_options {
+  // Called on every rank after each block step with the number of columns eliminated.
+  std::function<void(index_t)> on_step;
+};
+
 // Overwrites a with L (unit lower, below the diagonal) and U, in LAPACK's convention:
 // P A = L U. Collective over a's grid.
 template <scalar T>
-lu_result factor(dist_matrix<T>& a);
+lu_result factor(dist_matrix<T>& a, const lu_options& options = {});
 
 // Overwrites b (n x k, same grid and block size as lu) with inv(A) b.
 template <scalar T>

@@ -3,6 +3,8 @@
 #pragma once
 
 #include <algorithm>
+#include <cstdint>
+#include <optional>
 #include <utility>
 #include <vector>
 
@@ -68,5 +70,15 @@ private:
   index_t local_rows_, local_cols_, ld_;
   std::vector<T> storage_;
 };
+
+// The first entry in row-major order that is NaN or infinite, as (row, column), or
+// nothing. Same answer on every rank.
+template <scalar T>
+std::optional<std::pair<index_t, index_t>> first_nonfinite(const dist_matrix<T>& a);
+
+// A checksum of the entries with their global positions: the same on any grid and
+// block size, different after any change of a value (with overwhelming probability).
+template <scalar T>
+std::uint64_t content_checksum(const dist_matrix<T>& a);
 
 }  // namespace gridlu

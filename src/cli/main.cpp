@@ -7,7 +7,14 @@
 #include <iostream>
 #include <optional>
 
+#include <unistd.h>
+
+#include <filesystem>
+#include <memory>
+
+#include "gridlu/io.hpp"
 #include "gridlu/kernels.hpp"
+#include "gridlu/version.hpp"
 #include "workflows/workflows.hpp"
 
 namespace {
@@ -75,7 +82,7 @@ int run_bench(const workflows::bench_options& o, const common_options& c) {
             {"gemm_gflops", r.gemm_gflops},
             {"gemm_order", r.gemm_order},
             {"ratio_to_gemm", ratio},
-            {"version", GRIDLU_VERSION}});
+            {"version", gridlu::version}});
   write_report(c.report, j);
   return 0;
 }
@@ -113,10 +120,125 @@ int run_demo(const workflows::demo_options& o, const common_options& c) {
               {"backward_error", worst},
               {"backward_errors", r.backward_errors},
               {"status", good ? "solved" : "inaccurate"},
-              {"version", GRIDLU_VERSION}});
+              {"version", gridlu::version}});
     write_report(c.report, j);
   }
   return r.first_zero_pivot >= 0 ? static_cast<int>(exit_code::singular) : 0;
+}
+
+
+// Progress of the factorization on stderr, from rank 0, at most once a second; on a
+// terminal one line rewritten in place.
+workflows::progress_callback progress_printer() {
+  const bool terminal = isatty(fileno(stderr));
+  auto last = std::make_shared<double>(-1.0);
+  return [=](double fraction, double seconds, double gflops) {
+    const bool done = fraction >= 1.0;
+    if (!done && seconds - *last < 1.0) return;
+    *last = seconds;
+    const double left = fraction > 0 ? seconds * (1.0 - fraction) / fraction : 0.0;
+    std::fprintf(stderr, "%sfactorization %5.1f %%  elapsed %6.0f s  left ~%6.0f s  %7.2f GFLOP/s%s",
+                 terminal ? "\r" : "", 100.0 * fraction, seconds, left, gflops,
+                 terminal && !done ? "" : "\n");
+    std::fflush(stderr);
+  };
+}
+
+struct solve_cli {
+  workflows::solve_options options;
+  bool quiet = false, progress = false;
+};
+
+int run_solve(solve_cli& s, const common_options& c) {
+  const auto grid = make_grid(c);
+  auto& o = s.options;
+  if (grid.rank() == 0 && !s.quiet && (s.progress || isatty(fileno(stderr))))
+    o.progress = progress_printer();
+  const auto r = workflows::solve_file(grid, o);
+  const double worst = *std::max_element(r.backward_errors.begin(), r.backward_errors.end());
+  const bool accepted = worst <= r.threshold;
+  if (grid.rank() != 0) return 0;
+  if (!s.quiet) {
+    std::printf("gridlu solve  %s -> %s\n", o.input.c_str(), o.output.c_str());
+    std::printf("  system     n = %lld, %lld right-hand side(s), %s\n",
+                static_cast<long long>(r.n), static_cast<long long>(r.nrhs), r.type.c_str());
+    std::printf("  grid       %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
+                grid.size(), static_cast<long long>(o.block));
+    std::printf("  time       read %.2f s | %s %.2f s | solve %.2f s | check %.2f s | write %.2f s"
+                " | total %.2f s\n",
+                r.read_seconds, r.refactored ? "factor" : "factor (saved)", r.factor_seconds,
+                r.solve_seconds, r.check_seconds, r.write_seconds, r.total_seconds);
+    if (r.refactored) std::printf("  speed      %.2f GFLOP/s in the factorization\n", r.gflops);
+    std::printf("  accuracy   worst backward error %.2e (accepted up to 10 n eps = %.2e): %s\n",
+                worst, r.threshold, accepted ? "ACCEPTED" : "SUSPECT");
+  }
+  auto j = grid_json(grid);
+  j.update({{"command", "solve"},
+            {"input", o.input},
+            {"output", o.output},
+            {"n", r.n},
+            {"nrhs", r.nrhs},
+            {"type", r.type},
+            {"block", o.block},
+            {"refactored", r.refactored},
+            {"times",
+             {{"read", r.read_seconds},
+              {"factor", r.factor_seconds},
+              {"solve", r.solve_seconds},
+              {"check", r.check_seconds},
+              {"write", r.write_seconds},
+              {"total", r.total_seconds}}},
+            {"gflops", r.gflops},
+            {"backward_error", worst},
+            {"backward_errors", r.backward_errors},
+            {"threshold", r.threshold},
+            {"status", accepted ? "solved" : "suspect"},
+            {"version", gridlu::version}});
+  write_report(c.report, j);
+  return 0;
+}
+
+int run_generate(const workflows::generate_options& o, const common_options& c) {
+  const auto grid = make_grid(c);
+  workflows::generate_file(grid, o);
+  if (grid.rank() == 0)
+    std::printf("gridlu generate: random %s system, n = %lld, %lld right-hand side(s), seed %llu -> %s\n",
+                o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.nrhs),
+                static_cast<unsigned long long>(o.seed), o.output.c_str());
+  return 0;
+}
+
+std::string dims_text(const std::vector<index_t>& dims) {
+  if (dims.empty()) return "scalar";
+  std::string t;
+  for (std::size_t k = 0; k < dims.size(); ++k) t += (k ? " x " : "") + std::to_string(dims[k]);
+  return t;
+}
+
+int run_info(const std::string& path) {
+  // Rank 0 reads the file alone; the others only learn the outcome.
+  int rank = 0;
+  MPI_Comm_rank(MPI_COMM_WORLD, &rank);
+  if (rank != 0) return 0;
+  const auto d = io::describe(path);
+  std::error_code ec;
+  const auto bytes = std::filesystem::file_size(path, ec);
+  std::printf("file       %s (%.1f MB)\n", path.c_str(), static_cast<double>(bytes) / 1e6);
+  std::string kind, format;
+  for (const auto& [k, v] : d.attributes) {
+    if (k == "gridlu_kind") kind = v;
+    if (k == "gridlu_format") format = v;
+  }
+  if (kind.empty()) std::printf("kind       foreign (not written by gridlu)\n");
+  else std::printf("kind       gridlu %s, format %s\n", kind.c_str(), format.c_str());
+  for (const auto& [k, v] : d.attributes) std::printf("attribute  %s = %s\n", k.c_str(), v.c_str());
+  for (const auto& item : d.datasets) {
+    std::printf("dataset    %s  %s  %s%s\n", item.path.c_str(), dims_text(item.shape.dims).c_str(),
+                item.shape.type.c_str(), item.shape.usable ? "" : " (not usable by gridlu)");
+    for (const auto& [k, v] : item.attributes)
+      std::printf("attribute  %s:%s = %s\n", item.path.c_str(), k.c_str(), v.c_str());
+  }
+  return 0;
 }
 
 }  // namespace
@@ -159,6 +281,50 @@ int main(int argc, char** argv) {
   demo_cmd->footer("Example:\n  mpiexec -n 2 gridlu demo --n 3000 --rhs 4\n\n" +
                    std::string(exit_codes_help));
 
+
+  solve_cli solve;
+  auto& so = solve.options;
+  auto* solve_cmd = app.add_subcommand("solve", "solve A X = B read from an HDF5 file, write X");
+  solve_cmd->add_option("input", so.input, "HDF5 file with A (and B)")->required();
+  solve_cmd->add_option("--out", so.output, "HDF5 file to write X to")->required();
+  solve_cmd->add_option("--matrix-dataset", so.matrix_dataset, "name of A in INPUT")->capture_default_str();
+  solve_cmd->add_option("--rhs-dataset", so.rhs_dataset, "name of B")->capture_default_str();
+  solve_cmd->add_option("--rhs-file", so.rhs_file, "read B from this file instead of INPUT");
+  solve_cmd->add_option("--block", so.block, "block size nb")->capture_default_str();
+  solve_cmd->add_flag("--column-major", so.column_major,
+                      "A's dataset holds the transpose (element [i][j] is A(j, i)), as column-major writers store it");
+  solve_cmd->add_option("--save-factors", so.save_factors, "also write the LU factors to this file");
+  solve_cmd->add_option("--factors", so.factors, "solve with factors saved earlier instead of factoring");
+  solve_cmd->add_flag("--force", so.force, "replace OUTPUT (and the --save-factors file) if it exists");
+  solve_cmd->add_flag("--quiet", solve.quiet, "print nothing but errors");
+  solve_cmd->add_flag("--progress", solve.progress, "show factorization progress even when stderr is not a terminal");
+  add_common(solve_cmd, common);
+  solve_cmd->footer(
+      "Examples:\n"
+      "  mpiexec -n 4 gridlu solve plate.h5 --out charges.h5\n"
+      "  mpiexec -n 4 gridlu solve plate.h5 --out x.h5 --save-factors plate-lu.h5\n"
+      "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out x2.h5\n\n" +
+      std::string(exit_codes_help));
+
+  workflows::generate_options gen;
+  auto* gen_cmd = app.add_subcommand("generate", "write a test system to an HDF5 file");
+  gen_cmd->require_subcommand(1);
+  auto* random_cmd = gen_cmd->add_subcommand(
+      "random", "random A and B, entries uniform in [-1, 1), the same on any number of ranks");
+  random_cmd->add_option("--n", gen.n, "number of unknowns")->required();
+  random_cmd->add_option("--out", gen.output, "HDF5 file to write")->required();
+  random_cmd->add_option("--rhs", gen.nrhs, "number of right-hand sides")->capture_default_str();
+  random_cmd->add_option("--type", gen.type, "float32, float64, complex64 or complex128")->capture_default_str();
+  random_cmd->add_option("--seed", gen.seed, "seed")->capture_default_str();
+  random_cmd->add_flag("--force", gen.force, "replace the file if it exists");
+  add_common(random_cmd, common);
+  random_cmd->footer("Example:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5");
+
+  std::string info_path;
+  auto* info_cmd = app.add_subcommand("info", "show what an HDF5 file holds");
+  info_cmd->add_option("file", info_path, "any HDF5 file")->required();
+  info_cmd->footer("Example:\n  gridlu info charges.h5");
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -169,10 +335,16 @@ int main(int argc, char** argv) {
 
   try {
     if (*bench_cmd) return run_bench(bench, common);
-    return run_demo(demo, common);
+    if (*demo_cmd) return run_demo(demo, common);
+    if (*solve_cmd) return run_solve(solve, common);
+    if (*gen_cmd) return run_generate(gen, common);
+    return run_info(info_path);
   } catch (const gridlu::error& e) {
     // Errors reaching here were agreed by all ranks (or raised by all alike).
-    if (rank == 0) std::fprintf(stderr, "gridlu: %s\n", e.what());
+    if (rank == 0) std::fprintf(stderr, "gridlu: error: %s\n", e.what());
     return static_cast<int>(e.code());
+  } catch (const std::exception& e) {
+    std::fprintf(stderr, "gridlu: error: internal failure on rank %d: %s\n", rank, e.what());
+    MPI_Abort(MPI_COMM_WORLD, static_cast<int>(exit_code::internal));
   }
 }

@@ -153,6 +153,11 @@ void max(const communicator& c, T* data, index_t count) {
         "MPI_Allreduce");
 }
 
+void bit_xor(const communicator& c, std::uint64_t* data, index_t count) {
+  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), MPI_UINT64_T, MPI_BXOR, c.get()),
+        "MPI_Allreduce");
+}
+
 candidate best(const communicator& c, candidate mine) {
   // MPI_MAXLOC keeps the smallest index among equal values, as the pivot rule needs.
   struct {

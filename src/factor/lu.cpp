@@ -77,7 +77,7 @@ void factor_panel(dist_matrix<T>& a, index_t j0, index_t jb, index_t lc0, std::s
 }  // namespace
 
 template <scalar T>
-lu_result factor(dist_matrix<T>& a) {
+lu_result factor(dist_matrix<T>& a, const lu_options& options) {
   if (a.rows() != a.cols()) throw error(exit_code::usage, "LU needs a square matrix");
   const auto& grid = a.grid();
   const auto& rows = a.layout().rows;
@@ -126,11 +126,12 @@ lu_result factor(dist_matrix<T>& a) {
     const index_t lr1 = rows.local_begin(myrow, j0 + jb);
     blas::gemm(op::none, op::none, mloc - lr1, nr, jb, T(-1), panel.data() + (lr1 - lr0), mp,
                urow.data(), jb, T(1), a.at(lr1, lc1), ld);
+    if (options.on_step) options.on_step(j0 + jb);
   }
   return result;
 }
 
-#define INSTANTIATE(T) template lu_result factor<T>(dist_matrix<T>&);
+#define INSTANTIATE(T) template lu_result factor<T>(dist_matrix<T>&, const lu_options&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE
 

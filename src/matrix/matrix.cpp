@@ -1,5 +1,10 @@
 #include "gridlu/matrix.hpp"
 
+#include <cmath>
+#include <cstring>
+#include <limits>
+
+#include "gridlu/generate.hpp"
 #include "instantiate.hpp"
 
 #include <complex>
@@ -87,7 +92,57 @@ void dist_matrix<T>::scatter(const std::vector<T>& whole, int root) {
     std::copy_n(mine.data() + lj * local_rows_, local_rows_, at(0, lj));
 }
 
-#define INSTANTIATE(T) template class dist_matrix<T>;
+template <scalar T>
+std::optional<std::pair<index_t, index_t>> first_nonfinite(const dist_matrix<T>& a) {
+  // Row-major position i * cols + j, negated so that a max-reduction finds the first.
+  std::int64_t key = std::numeric_limits<std::int64_t>::min();
+  const auto& layout = a.layout();
+  for (index_t lj = 0; lj < a.local_cols(); ++lj) {
+    const T* column = a.at(0, lj);
+    for (index_t li = 0; li < a.local_rows(); ++li) {
+      const bool finite = scalar_traits<T>::is_complex
+                              ? std::isfinite(std::real(column[li])) && std::isfinite(std::imag(column[li]))
+                              : std::isfinite(std::real(column[li]));
+      if (!finite) {
+        const index_t g = layout.rows.global(a.grid().myrow(), li) * a.cols() +
+                          layout.cols.global(a.grid().mycol(), lj);
+        key = std::max(key, -g);
+        break;  // later rows of this column come later in row-major order too
+      }
+    }
+  }
+  comm::max(a.grid().all(), &key, 1);
+  if (key == std::numeric_limits<std::int64_t>::min()) return std::nullopt;
+  return std::pair{-key / a.cols(), -key % a.cols()};
+}
+
+template <scalar T>
+std::uint64_t content_checksum(const dist_matrix<T>& a) {
+  std::uint64_t sum = 0;
+  const auto& layout = a.layout();
+  for (index_t lj = 0; lj < a.local_cols(); ++lj) {
+    const auto j = static_cast<std::uint64_t>(layout.cols.global(a.grid().mycol(), lj));
+    for (index_t li = 0; li < a.local_rows(); ++li) {
+      const auto i = static_cast<std::uint64_t>(layout.rows.global(a.grid().myrow(), li));
+      std::uint64_t h = detail::mix64(i * 0x9e3779b97f4a7c15ULL ^ detail::mix64(j));
+      unsigned char bytes[sizeof(T)];
+      std::memcpy(bytes, a.at(li, lj), sizeof(T));
+      for (std::size_t k = 0; k < sizeof(T); k += 4) {
+        std::uint32_t w = 0;
+        std::memcpy(&w, bytes + k, 4);
+        h = detail::mix64(h ^ w);
+      }
+      sum ^= h;
+    }
+  }
+  comm::bit_xor(a.grid().all(), &sum, 1);
+  return sum;
+}
+
+#define INSTANTIATE(T)                                                                   \
+  template class dist_matrix<T>;                                                         \
+  template std::optional<std::pair<index_t, index_t>> first_nonfinite<T>(const dist_matrix<T>&); \
+  template std::uint64_t content_checksum<T>(const dist_matrix<T>&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE
 

@@ -3,6 +3,7 @@
 #pragma once
 
 #include <cstdint>
+#include <functional>
 #include <string>
 #include <vector>
 
@@ -51,5 +52,45 @@ struct demo_result {
 
 // Generates a random system A X = B, factors, solves and checks the backward error.
 demo_result demo(const process_grid& grid, const demo_options& options);
+
+// Progress of a factorization: fraction of its flops done, seconds so far, GFLOP/s so far.
+using progress_callback = std::function<void(double fraction, double seconds, double gflops)>;
+
+struct solve_options {
+  std::string input, output;
+  std::string matrix_dataset = "A", rhs_dataset = "B", rhs_file;  // rhs_file empty: input
+  index_t block = default_block;
+  bool column_major = false;  // the file holds the transpose of A
+  bool force = false;
+  std::string save_factors, factors;  // paths, or empty
+  progress_callback progress;
+};
+
+struct solve_result {
+  index_t n = 0, nrhs = 0;
+  std::string type;
+  bool refactored = true;  // false when saved factors were used
+  double read_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0,
+         write_seconds = 0, total_seconds = 0;
+  double gflops = 0;
+  std::vector<double> backward_errors;
+  double threshold = 0;  // accepted backward error for the type: 10 n eps
+};
+
+// Reads A and B from HDF5, factors (or loads saved factors), solves, checks the backward
+// error against A re-read from its file, writes X. Throws gridlu::error, agreed by all
+// ranks; no output file is left behind on failure.
+solve_result solve_file(const process_grid& grid, const solve_options& options);
+
+struct generate_options {
+  index_t n = 0, nrhs = 1;
+  std::string type = "float64";
+  std::uint64_t seed = 1;
+  std::string output;
+  bool force = false;
+};
+
+// Writes the random system of generate_options to an HDF5 file, in parallel.
+void generate_file(const process_grid& grid, const generate_options& options);
 
 }  // namespace gridlu::workflows

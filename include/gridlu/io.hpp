@@ -1,0 +1,86 @@
+// HDF5 files: datasets in and out of distributed matrices, attributes, descriptions.
+// No HDF5 type appears here; the handles live in src/io/.
+#pragma once
+
+#include <cstdint>
+#include <memory>
+#include <optional>
+#include <string>
+#include <variant>
+#include <vector>
+
+#include "gridlu/matrix.hpp"
+
+namespace gridlu::io {
+
+// What a dataset holds. `type` is one of the four element-type names gridlu solves in
+// (scalar_traits<T>::name) or a description of anything else ("int32", "string",
+// "compound {re, im}", ...); `usable` says which.
+struct dataset_shape {
+  std::vector<index_t> dims;
+  std::string type;
+  bool usable = false;
+  bool is_complex = false;
+};
+
+using attribute = std::variant<std::int64_t, double, std::string, std::vector<double>>;
+
+// An HDF5 file opened by every rank of a communicator (MPI-IO). Reads and writes of
+// matrices are collective and in two phases: each rank moves whole contiguous slabs of
+// rows between the file and memory, and one all-to-all per round of slabs carries them
+// between the slabs' readers/writers and the block-cyclic owners. Memory beyond the
+// matrix stays O(n * nb) per rank. Errors are agreed across ranks.
+class file {
+public:
+  enum class mode { read, create };
+  // read: the file must exist and be HDF5 (input error otherwise). create: truncates.
+  file(const process_grid& grid, const std::string& path, mode m);
+  ~file();
+  file(file&&) noexcept;
+  file& operator=(file&&) noexcept;
+
+  const std::string& path() const { return path_; }
+  bool has_dataset(const std::string& name) const;
+  // Throws an input error naming the dataset when it is missing.
+  dataset_shape shape(const std::string& name) const;
+
+  // Reads a 2-D dataset (a 1-D one as n x 1) into m, whose sizes must match, converting
+  // to T. With `transposed`, element [i][j] of the dataset is m(j, i).
+  template <scalar T>
+  void read(const std::string& name, dist_matrix<T>& m, bool transposed = false) const;
+  // Writes m as a row-major dataset; as 1-D when `one_dimensional` (m must be n x 1).
+  template <scalar T>
+  void write(const std::string& name, const dist_matrix<T>& m, bool one_dimensional = false);
+
+  // Small 1-D integer datasets, the same on every rank (pivots).
+  void write_indices(const std::string& name, const std::vector<index_t>& values);
+  std::vector<index_t> read_indices(const std::string& name) const;
+
+  // Attributes of the file ("/") or of a dataset; the same value on every rank.
+  void set_attribute(const std::string& object, const std::string& key, const attribute& value);
+  std::optional<attribute> get_attribute(const std::string& object, const std::string& key) const;
+
+  // Closes the file, flushing everything; errors surface here rather than silently in
+  // the destructor.
+  void close();
+
+private:
+  struct handles;
+  const process_grid* grid_;
+  std::string path_;
+  std::unique_ptr<handles> h_;
+};
+
+// Everything in any HDF5 file, read on the calling rank alone (for `gridlu info`).
+struct description {
+  struct item {
+    std::string path;
+    dataset_shape shape;
+    std::vector<std::pair<std::string, std::string>> attributes;  // key, printable value
+  };
+  std::vector<std::pair<std::string, std::string>> attributes;  // of the root group
+  std::vector<item> datasets;
+};
+description describe(const std::string& path);
+
+}  // namespace gridlu::io

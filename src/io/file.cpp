@@ -1,0 +1,513 @@
+#include <sys/stat.h>
+
+#include <algorithm>
+#include <cstdio>
+#include <cstring>
+#include <numeric>
+
+#include "gridlu/io.hpp"
+#include "instantiate.hpp"
+#include "io/hdf5.hpp"
+
+namespace gridlu::io {
+namespace {
+
+using h5::check;
+using h5::handle;
+
+// HDF5 prints its own error stack by default; gridlu reports errors itself.
+void silence_hdf5() {
+  static const bool done = [] {
+    H5Eset_auto2(H5E_DEFAULT, nullptr, nullptr);
+    return true;
+  }();
+  (void)done;
+}
+
+std::string quoted(const std::string& s) { return "'" + s + "'"; }
+
+// "float64", "complex128", or a description of a type gridlu cannot solve in.
+dataset_shape describe_type(hid_t type) {
+  dataset_shape s;
+  const std::size_t size = H5Tget_size(type);
+  switch (H5Tget_class(type)) {
+    case H5T_FLOAT:
+      s.usable = size == 4 || size == 8;
+      s.type = "float" + std::to_string(8 * size);
+      break;
+    case H5T_INTEGER:
+      s.type = (H5Tget_sign(type) == H5T_SGN_NONE ? "uint" : "int") + std::to_string(8 * size);
+      break;
+    case H5T_STRING:
+      s.type = "string";
+      break;
+    case H5T_COMPOUND: {
+      const int members = H5Tget_nmembers(type);
+      std::string names;
+      bool floats = true;
+      for (int m = 0; m < members; ++m) {
+        char* name = H5Tget_member_name(type, static_cast<unsigned>(m));
+        names += (m ? ", " : "") + std::string(name ? name : "?");
+        H5free_memory(name);
+        floats = floats && H5Tget_member_class(type, static_cast<unsigned>(m)) == H5T_FLOAT;
+      }
+      if (members == 2 && floats && names == "r, i" && (size == 8 || size == 16)) {
+        s.usable = s.is_complex = true;
+        s.type = "complex" + std::to_string(8 * size);
+      } else {
+        s.type = "compound {" + names + "}";
+      }
+      break;
+    }
+    default:
+      s.type = "other";
+  }
+  return s;
+}
+
+dataset_shape describe_dataset(hid_t dset) {
+  const handle type(H5Dget_type(dset), H5Tclose);
+  const handle space(H5Dget_space(dset), H5Sclose);
+  dataset_shape s = describe_type(type.get());
+  const int rank = H5Sget_simple_extent_ndims(space.get());
+  std::vector<hsize_t> dims(static_cast<std::size_t>(std::max(rank, 0)));
+  if (rank > 0) H5Sget_simple_extent_dims(space.get(), dims.data(), nullptr);
+  s.dims.assign(dims.begin(), dims.end());
+  return s;
+}
+
+handle open_dataset(hid_t file, const std::string& name, const std::string& path) {
+  if (H5Lexists(file, name.c_str(), H5P_DEFAULT) <= 0)
+    throw error(exit_code::input, "no dataset " + quoted(name) + " in " + path);
+  const hid_t id = H5Dopen2(file, name.c_str(), H5P_DEFAULT);
+  return {check(id, quoted(name) + " in " + path + " is not a dataset"), H5Dclose};
+}
+
+// Which slab of file rows each rank moves, round by round. Slab s is the file rows of
+// block s of `along` (the matrix dimension that follows the file's rows); its entries go
+// to the process row (or column, if transposed) that owns that block.
+struct slab_plan {
+  const process_grid& grid;
+  cyclic_map along, across;
+  bool transposed;
+  index_t file_cols;
+
+  int ranks() const { return grid.size(); }
+  index_t rounds() const { return (along.block_count() + ranks() - 1) / ranks(); }
+  index_t slab(index_t round, int rank) const {
+    const index_t s = round * ranks() + rank;
+    return s < along.block_count() ? s : -1;
+  }
+  int my_along() const { return transposed ? grid.mycol() : grid.myrow(); }
+  int my_across() const { return transposed ? grid.myrow() : grid.mycol(); }
+  int along_of(int rank) const { return transposed ? rank % grid.pcols() : rank / grid.pcols(); }
+  int across_of(int rank) const { return transposed ? rank / grid.pcols() : rank % grid.pcols(); }
+  // Local storage of file entry (global file row g, local index l across).
+  template <class T>
+  T* entry(dist_matrix<T>& m, index_t g, index_t l) const {
+    return transposed ? m.at(l, along.local(g)) : m.at(along.local(g), l);
+  }
+};
+
+template <scalar T>
+slab_plan make_plan(const process_grid& grid, const dist_matrix<T>& m, bool transposed) {
+  const auto& rows = m.layout().rows;
+  const auto& cols = m.layout().cols;
+  return transposed ? slab_plan{grid, cols, rows, true, m.rows()}
+                    : slab_plan{grid, rows, cols, false, m.cols()};
+}
+
+handle select_rows(hid_t dset, index_t first, index_t count) {
+  handle space(check(H5Dget_space(dset), "H5Dget_space"), H5Sclose);
+  hsize_t dims[2] = {0, 1};  // a 1-D dataset leaves the second at 1 and reads only the first
+  H5Sget_simple_extent_dims(space.get(), dims, nullptr);
+  const hsize_t start[2] = {static_cast<hsize_t>(first), 0};
+  const hsize_t n[2] = {static_cast<hsize_t>(count), dims[1]};
+  check(H5Sselect_hyperslab(space.get(), H5S_SELECT_SET, start, nullptr, n, nullptr),
+        "H5Sselect_hyperslab", exit_code::internal);
+  return space;
+}
+
+handle memory_space(index_t elements) {
+  const hsize_t n = static_cast<hsize_t>(elements);
+  return {check(H5Screate_simple(1, &n, nullptr), "H5Screate_simple", exit_code::internal),
+          H5Sclose};
+}
+
+// Reads file rows [first, first + count) as T, widening a real dataset into a complex T.
+template <scalar T>
+std::vector<T> read_slab(hid_t dset, bool file_complex, index_t first, index_t count,
+                         index_t cols, const std::string& what) {
+  const auto file_space = select_rows(dset, first, count);
+  const auto mem_space = memory_space(count * cols);
+  std::vector<T> out(static_cast<std::size_t>(count * cols));
+  if (scalar_traits<T>::is_complex && !file_complex) {
+    std::vector<real_t<T>> real(out.size());
+    const auto type = h5::memory_type<real_t<T>>();
+    check(H5Dread(dset, type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT, real.data()),
+          "cannot read " + what + " (truncated or damaged file?)");
+    std::copy(real.begin(), real.end(), out.begin());
+  } else {
+    const auto type = h5::memory_type<T>();
+    check(H5Dread(dset, type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT, out.data()),
+          "cannot read " + what + " (truncated or damaged file?)");
+  }
+  return out;
+}
+
+}  // namespace
+
+struct file::handles {
+  handle file;
+};
+
+file::file(const process_grid& grid, const std::string& path, mode m)
+    : grid_(&grid), path_(path), h_(std::make_unique<handles>()) {
+  silence_hdf5();
+  comm::together(grid.all(), [&] {
+    handle fapl(check(H5Pcreate(H5P_FILE_ACCESS), "H5Pcreate", exit_code::internal), H5Pclose);
+    check(H5Pset_fapl_mpio(fapl.get(), grid.all().get(), MPI_INFO_NULL), "H5Pset_fapl_mpio",
+          exit_code::internal);
+    if (m == mode::create) {
+      const hid_t id = H5Fcreate(path.c_str(), H5F_ACC_TRUNC, H5P_DEFAULT, fapl.get());
+      h_->file = handle(check(id, "cannot create " + path, exit_code::usage), H5Fclose);
+      return;
+    }
+    struct stat st{};
+    if (stat(path.c_str(), &st) != 0)
+      throw error(exit_code::input, "cannot open " + path + ": " + std::strerror(errno));
+    if (H5Fis_hdf5(path.c_str()) <= 0) throw error(exit_code::input, path + " is not an HDF5 file");
+    const hid_t id = H5Fopen(path.c_str(), H5F_ACC_RDONLY, fapl.get());
+    h_->file = handle(check(id, path + " cannot be opened as HDF5 (truncated or damaged?)"), H5Fclose);
+  });
+}
+
+file::~file() = default;
+file::file(file&&) noexcept = default;
+file& file::operator=(file&&) noexcept = default;
+
+void file::close() {
+  comm::together(grid_->all(), [&] {
+    if (h_->file.release() < 0) throw error(exit_code::input, "cannot finish writing " + path_);
+  });
+}
+
+bool file::has_dataset(const std::string& name) const {
+  return H5Lexists(h_->file.get(), name.c_str(), H5P_DEFAULT) > 0;
+}
+
+dataset_shape file::shape(const std::string& name) const {
+  return describe_dataset(open_dataset(h_->file.get(), name, path_).get());
+}
+
+template <scalar T>
+void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) const {
+  const auto dset = open_dataset(h_->file.get(), name, path_);
+  const auto s = describe_dataset(dset.get());
+  const slab_plan plan = make_plan(*grid_, m, transposed);
+  const index_t file_rows = plan.along.extent();
+  const bool fits = s.dims.size() == 2 ? s.dims[0] == file_rows && s.dims[1] == plan.file_cols
+                                       : s.dims.size() == 1 && s.dims[0] == file_rows && plan.file_cols == 1;
+  if (!fits || !s.usable || (s.is_complex && !scalar_traits<T>::is_complex))
+    throw error(exit_code::internal, "read: " + name + " does not fit the matrix");
+  const std::string what = quoted(name) + " from " + path_;
+  const int me = grid_->rank();
+  const index_t mine_across = plan.across.local_extent(plan.my_across());
+  std::vector<T> slab, sent, received;
+  for (index_t round = 0; round < plan.rounds(); ++round) {
+    const index_t s_me = plan.slab(round, me);
+    comm::together(grid_->all(), [&] {
+      if (s_me < 0) return;
+      slab = read_slab<T>(dset.get(), s.is_complex, plan.along.block_start(s_me),
+                          plan.along.block_size(s_me), plan.file_cols, what);
+    });
+    std::vector<int> send_counts(static_cast<std::size_t>(plan.ranks()), 0),
+        recv_counts(send_counts);
+    sent.clear();
+    if (s_me >= 0) {
+      const index_t h = plan.along.block_size(s_me);
+      const int owner = plan.along.block_owner(s_me);
+      for (int r = 0; r < plan.ranks(); ++r) {
+        if (plan.along_of(r) != owner) continue;
+        const int d = plan.across_of(r);
+        const index_t width = plan.across.local_extent(d);
+        for (index_t t = 0; t < h; ++t)
+          for (index_t l = 0; l < width; ++l)
+            sent.push_back(slab[t * plan.file_cols + plan.across.global(d, l)]);
+        send_counts[r] = static_cast<int>(h * width);
+      }
+    }
+    for (int r = 0; r < plan.ranks(); ++r) {
+      const index_t s_r = plan.slab(round, r);
+      if (s_r >= 0 && plan.along.block_owner(s_r) == plan.my_along())
+        recv_counts[r] = static_cast<int>(plan.along.block_size(s_r) * mine_across);
+    }
+    received.resize(static_cast<std::size_t>(
+        std::accumulate(recv_counts.begin(), recv_counts.end(), index_t{0})));
+    comm::all_to_all(grid_->all(), sent.data(), send_counts, received.data(), recv_counts);
+    auto next = received.cbegin();
+    for (int r = 0; r < plan.ranks(); ++r) {
+      if (recv_counts[r] == 0) continue;
+      const index_t s_r = plan.slab(round, r), g0 = plan.along.block_start(s_r);
+      for (index_t t = 0; t < plan.along.block_size(s_r); ++t)
+        for (index_t l = 0; l < mine_across; ++l) *plan.entry(m, g0 + t, l) = *next++;
+    }
+  }
+}
+
+template <scalar T>
+void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dimensional) {
+  const slab_plan plan = make_plan(*grid_, m, false);
+  const index_t rows = m.rows(), cols = m.cols();
+  handle dset;
+  comm::together(grid_->all(), [&] {
+    const hsize_t dims[2] = {static_cast<hsize_t>(rows), static_cast<hsize_t>(cols)};
+    const handle space(check(H5Screate_simple(one_dimensional ? 1 : 2, dims, nullptr),
+                             "H5Screate_simple", exit_code::internal),
+                       H5Sclose);
+    const handle dcpl(check(H5Pcreate(H5P_DATASET_CREATE), "H5Pcreate", exit_code::internal),
+                      H5Pclose);
+    H5Pset_fill_time(dcpl.get(), H5D_FILL_TIME_NEVER);  // every element is written
+    const auto type = h5::memory_type<T>();
+    const hid_t id = H5Dcreate2(h_->file.get(), name.c_str(), type.get(), space.get(), H5P_DEFAULT,
+                                dcpl.get(), H5P_DEFAULT);
+    dset = handle(check(id, "cannot create dataset " + quoted(name) + " in " + path_), H5Dclose);
+  });
+  const int me = grid_->rank();
+  const index_t mine_across = plan.across.local_extent(plan.my_across());
+  std::vector<T> slab, sent, received;
+  for (index_t round = 0; round < plan.rounds(); ++round) {
+    std::vector<int> send_counts(static_cast<std::size_t>(plan.ranks()), 0),
+        recv_counts(send_counts);
+    sent.clear();
+    for (int r = 0; r < plan.ranks(); ++r) {
+      const index_t s_r = plan.slab(round, r);
+      if (s_r < 0 || plan.along.block_owner(s_r) != plan.my_along()) continue;
+      const index_t g0 = plan.along.block_start(s_r);
+      for (index_t t = 0; t < plan.along.block_size(s_r); ++t)
+        for (index_t l = 0; l < mine_across; ++l)
+          sent.push_back(*plan.entry(const_cast<dist_matrix<T>&>(m), g0 + t, l));
+      send_counts[r] = static_cast<int>(plan.along.block_size(s_r) * mine_across);
+    }
+    const index_t s_me = plan.slab(round, me);
+    if (s_me >= 0) {
+      const index_t h = plan.along.block_size(s_me);
+      for (int r = 0; r < plan.ranks(); ++r)
+        if (plan.along_of(r) == plan.along.block_owner(s_me))
+          recv_counts[r] = static_cast<int>(h * plan.across.local_extent(plan.across_of(r)));
+    }
+    received.resize(static_cast<std::size_t>(
+        std::accumulate(recv_counts.begin(), recv_counts.end(), index_t{0})));
+    comm::all_to_all(grid_->all(), sent.data(), send_counts, received.data(), recv_counts);
+    comm::together(grid_->all(), [&] {
+      if (s_me < 0) return;
+      const index_t h = plan.along.block_size(s_me);
+      slab.resize(static_cast<std::size_t>(h * cols));
+      auto next = received.cbegin();
+      for (int r = 0; r < plan.ranks(); ++r) {
+        if (recv_counts[r] == 0) continue;
+        const int d = plan.across_of(r);
+        for (index_t t = 0; t < h; ++t)
+          for (index_t l = 0; l < plan.across.local_extent(d); ++l)
+            slab[t * cols + plan.across.global(d, l)] = *next++;
+      }
+      const auto file_space = select_rows(dset.get(), plan.along.block_start(s_me), h);
+      const auto mem_space = memory_space(h * cols);
+      const auto type = h5::memory_type<T>();
+      check(H5Dwrite(dset.get(), type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT,
+                     slab.data()),
+            "cannot write " + quoted(name) + " to " + path_ + " (disk full?)");
+    });
+  }
+}
+
+void file::write_indices(const std::string& name, const std::vector<index_t>& values) {
+  comm::together(grid_->all(), [&] {
+    const hsize_t n = values.size();
+    const handle space(check(H5Screate_simple(1, &n, nullptr), "H5Screate_simple"), H5Sclose);
+    const handle dset(check(H5Dcreate2(h_->file.get(), name.c_str(), H5T_NATIVE_INT64, space.get(),
+                                       H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
+                            "cannot create dataset " + quoted(name) + " in " + path_),
+                      H5Dclose);
+    if (grid_->rank() == 0)
+      check(H5Dwrite(dset.get(), H5T_NATIVE_INT64, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()),
+            "cannot write " + quoted(name) + " to " + path_);
+  });
+}
+
+std::vector<index_t> file::read_indices(const std::string& name) const {
+  std::vector<index_t> values;
+  comm::together(grid_->all(), [&] {
+    const auto dset = open_dataset(h_->file.get(), name, path_);
+    const auto s = describe_dataset(dset.get());
+    if (s.dims.size() != 1 || s.type.rfind("int", 0) != 0)
+      throw error(exit_code::input, quoted(name) + " in " + path_ + " is not a 1-D integer dataset");
+    values.resize(static_cast<std::size_t>(s.dims[0]));
+    check(H5Dread(dset.get(), H5T_NATIVE_INT64, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()),
+          "cannot read " + quoted(name) + " from " + path_);
+  });
+  return values;
+}
+
+void file::set_attribute(const std::string& object, const std::string& key, const attribute& value) {
+  comm::together(grid_->all(), [&] {
+    const handle obj(check(H5Oopen(h_->file.get(), object.c_str(), H5P_DEFAULT),
+                           "no object " + quoted(object) + " in " + path_),
+                     H5Oclose);
+    if (H5Aexists(obj.get(), key.c_str()) > 0) H5Adelete(obj.get(), key.c_str());
+    hsize_t n = 1;
+    handle type, space(check(H5Screate(H5S_SCALAR), "H5Screate"), H5Sclose);
+    const void* data = nullptr;
+    const char* text = nullptr;
+    if (const auto* i = std::get_if<std::int64_t>(&value)) {
+      type = h5::owned_type(H5Tcopy(H5T_NATIVE_INT64), "H5Tcopy");
+      data = i;
+    } else if (const auto* d = std::get_if<double>(&value)) {
+      type = h5::owned_type(H5Tcopy(H5T_NATIVE_DOUBLE), "H5Tcopy");
+      data = d;
+    } else if (const auto* v = std::get_if<std::vector<double>>(&value)) {
+      type = h5::owned_type(H5Tcopy(H5T_NATIVE_DOUBLE), "H5Tcopy");
+      n = v->size();
+      space = handle(check(H5Screate_simple(1, &n, nullptr), "H5Screate_simple"), H5Sclose);
+      data = v->data();
+    } else {
+      // Variable-length UTF-8, which h5py reads back as str.
+      type = h5::owned_type(H5Tcopy(H5T_C_S1), "H5Tcopy");
+      H5Tset_size(type.get(), H5T_VARIABLE);
+      H5Tset_cset(type.get(), H5T_CSET_UTF8);
+      text = std::get<std::string>(value).c_str();
+      data = &text;
+    }
+    const handle attr(check(H5Acreate2(obj.get(), key.c_str(), type.get(), space.get(),
+                                       H5P_DEFAULT, H5P_DEFAULT),
+                            "cannot write attribute " + key + " in " + path_),
+                      H5Aclose);
+    check(H5Awrite(attr.get(), type.get(), data), "cannot write attribute " + key);
+  });
+}
+
+namespace {
+
+std::optional<attribute> read_attribute(hid_t obj, const std::string& key) {
+  if (H5Aexists(obj, key.c_str()) <= 0) return std::nullopt;
+  const handle attr(check(H5Aopen(obj, key.c_str(), H5P_DEFAULT), "H5Aopen"), H5Aclose);
+  const handle type(check(H5Aget_type(attr.get()), "H5Aget_type"), H5Tclose);
+  const handle space(check(H5Aget_space(attr.get()), "H5Aget_space"), H5Sclose);
+  const auto points = H5Sget_simple_extent_npoints(space.get());
+  const bool scalar = H5Sget_simple_extent_ndims(space.get()) == 0;
+  switch (H5Tget_class(type.get())) {
+    case H5T_INTEGER:
+      if (points == 1) {
+        std::int64_t v = 0;
+        check(H5Aread(attr.get(), H5T_NATIVE_INT64, &v), "H5Aread");
+        return v;
+      }
+      break;
+    case H5T_FLOAT: {
+      std::vector<double> v(static_cast<std::size_t>(points));
+      check(H5Aread(attr.get(), H5T_NATIVE_DOUBLE, v.data()), "H5Aread");
+      if (scalar) return v.at(0);
+      return v;
+    }
+    case H5T_STRING:
+      if (points == 1) {
+        if (H5Tis_variable_str(type.get()) > 0) {
+          char* text = nullptr;
+          const auto mem = h5::owned_type(H5Tcopy(type.get()), "H5Tcopy");
+          check(H5Aread(attr.get(), mem.get(), &text), "H5Aread");
+          std::string s = text ? text : "";
+          H5free_memory(text);
+          return s;
+        }
+        std::string s(H5Tget_size(type.get()), '\0');
+        check(H5Aread(attr.get(), type.get(), s.data()), "H5Aread");
+        return s.substr(0, s.find('\0'));
+      }
+      break;
+    default:
+      break;
+  }
+  return std::string("(") + describe_type(type.get()).type + ")";
+}
+
+std::string printable(const attribute& a) {
+  if (const auto* i = std::get_if<std::int64_t>(&a)) return std::to_string(*i);
+  if (const auto* s = std::get_if<std::string>(&a)) return *s;
+  const auto number = [](double d) {
+    char text[32];
+    std::snprintf(text, sizeof text, "%.6g", d);
+    return std::string(text);
+  };
+  if (const auto* d = std::get_if<double>(&a)) return number(*d);
+  const auto& v = std::get<std::vector<double>>(a);
+  std::string out = "[";
+  for (std::size_t k = 0; k < v.size() && k < 8; ++k) out += (k ? ", " : "") + number(v[k]);
+  return out + (v.size() > 8 ? ", ...]" : "]");
+}
+
+std::vector<std::pair<std::string, std::string>> all_attributes(hid_t obj) {
+  std::vector<std::string> keys;
+  H5Aiterate2(
+      obj, H5_INDEX_NAME, H5_ITER_INC, nullptr,
+      [](hid_t, const char* name, const H5A_info_t*, void* out) -> herr_t {
+        static_cast<std::vector<std::string>*>(out)->push_back(name);
+        return 0;
+      },
+      &keys);
+  std::vector<std::pair<std::string, std::string>> out;
+  for (const auto& k : keys)
+    if (auto a = read_attribute(obj, k)) out.emplace_back(k, printable(*a));
+  return out;
+}
+
+}  // namespace
+
+std::optional<attribute> file::get_attribute(const std::string& object,
+                                             const std::string& key) const {
+  std::optional<attribute> value;
+  comm::together(grid_->all(), [&] {
+    if (H5Lexists(h_->file.get(), object.c_str(), H5P_DEFAULT) <= 0 && object != "/") return;
+    const handle obj(check(H5Oopen(h_->file.get(), object.c_str(), H5P_DEFAULT), "H5Oopen"),
+                     H5Oclose);
+    value = read_attribute(obj.get(), key);
+  });
+  return value;
+}
+
+description describe(const std::string& path) {
+  silence_hdf5();
+  struct stat st{};
+  if (stat(path.c_str(), &st) != 0)
+    throw error(exit_code::input, "cannot open " + path + ": " + std::strerror(errno));
+  if (H5Fis_hdf5(path.c_str()) <= 0) throw error(exit_code::input, path + " is not an HDF5 file");
+  const handle f(check(H5Fopen(path.c_str(), H5F_ACC_RDONLY, H5P_DEFAULT),
+                       path + " cannot be opened as HDF5 (truncated or damaged?)"),
+                 H5Fclose);
+  description d;
+  {
+    const handle root(check(H5Oopen(f.get(), "/", H5P_DEFAULT), "H5Oopen"), H5Oclose);
+    d.attributes = all_attributes(root.get());
+  }
+  std::vector<std::string> names;
+  H5Ovisit(
+      f.get(), H5_INDEX_NAME, H5_ITER_INC,
+      [](hid_t, const char* name, const H5O_info_t* info, void* out) -> herr_t {
+        if (info->type == H5O_TYPE_DATASET)
+          static_cast<std::vector<std::string>*>(out)->push_back(std::string("/") + name);
+        return 0;
+      },
+      &names);
+  for (const auto& n : names) {
+    const handle dset(check(H5Dopen2(f.get(), n.c_str(), H5P_DEFAULT), "H5Dopen"), H5Dclose);
+    d.datasets.push_back({n, describe_dataset(dset.get()), all_attributes(dset.get())});
+  }
+  return d;
+}
+
+#define INSTANTIATE(T)                                                                   \
+  template void file::read<T>(const std::string&, dist_matrix<T>&, bool) const;          \
+  template void file::write<T>(const std::string&, const dist_matrix<T>&, bool);
+GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
+#undef INSTANTIATE
+
+}  // namespace gridlu::io
