@@ -58,6 +58,31 @@ nlohmann::json grid_json(const process_grid& g) {
   return {{"grid", {g.prows(), g.pcols()}}, {"ranks", g.size()}};
 }
 
+int run_read_bench(const workflows::read_bench_options& o, const common_options& c) {
+  const auto grid = make_grid(c);
+  const auto r = workflows::bench_read(grid, o);
+  if (grid.rank() != 0) return 0;
+  auto sorted = r.seconds;
+  std::sort(sorted.begin(), sorted.end());
+  const double median = sorted[sorted.size() / 2];
+  std::printf("gridlu bench --read: %s:%s (%.2f GB) into a %dx%d grid, block %lld\n",
+              o.path.c_str(), o.dataset.c_str(), r.bytes * 1e-9, grid.prows(), grid.pcols(),
+              static_cast<long long>(o.block));
+  for (const double t : r.seconds) std::printf("  read %8.3f s   %6.2f GB/s\n", t, r.bytes / t * 1e-9);
+  std::printf("  median %6.3f s   %6.2f GB/s\n", median, r.bytes / median * 1e-9);
+  auto j = grid_json(grid);
+  j.update({{"command", "bench-read"},
+            {"file", o.path},
+            {"dataset", o.dataset},
+            {"bytes", r.bytes},
+            {"block", o.block},
+            {"times", {{"read", median}, {"read_runs", r.seconds}}},
+            {"gbytes_per_second", r.bytes / median * 1e-9},
+            {"version", gridlu::version}});
+  write_report(c.report, j);
+  return 0;
+}
+
 int run_bench(const workflows::bench_options& o, const common_options& c) {
   const auto grid = make_grid(c);
   const auto r = workflows::bench(grid, o);
@@ -265,8 +290,15 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   bench_cmd->add_option("--repeat", bench.repeat, "factorizations to time (median is reported)")
       ->capture_default_str();
+  workflows::read_bench_options read_bench;
+  bench_cmd->add_option("--read", read_bench.path,
+                        "instead: time reading a dataset of this HDF5 file into the grid");
+  bench_cmd->add_option("--dataset", read_bench.dataset, "with --read: the dataset")->capture_default_str();
+  bench_cmd->add_flag("--column-major", read_bench.column_major, "with --read: the dataset holds the transpose");
   add_common(bench_cmd, common);
-  bench_cmd->footer("Example:\n  mpiexec -n 2 gridlu bench --n 8192 --grid 1x2 --repeat 3");
+  bench_cmd->footer(
+      "Examples:\n  mpiexec -n 2 gridlu bench --n 8192 --grid 1x2 --repeat 3\n"
+      "  mpiexec -n 2 gridlu bench --read system.h5 --repeat 3");
 
   workflows::demo_options demo;
   auto* demo_cmd =
@@ -334,6 +366,11 @@ int main(int argc, char** argv) {
   }
 
   try {
+    if (*bench_cmd && !read_bench.path.empty()) {
+      read_bench.block = bench.block;
+      read_bench.repeat = bench.repeat;
+      return run_read_bench(read_bench, common);
+    }
     if (*bench_cmd) return run_bench(bench, common);
     if (*demo_cmd) return run_demo(demo, common);
     if (*solve_cmd) return run_solve(solve, common);

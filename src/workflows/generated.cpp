@@ -3,6 +3,7 @@
 
 #include "gridlu/accuracy.hpp"
 #include "gridlu/generate.hpp"
+#include "gridlu/io.hpp"
 #include "gridlu/kernels.hpp"
 #include "gridlu/lu.hpp"
 #include "workflows/workflows.hpp"
@@ -107,6 +108,24 @@ bench_result bench(const process_grid& grid, const bench_options& o) {
   check_sizes(o.n, o.block);
   if (o.repeat < 1) throw error(exit_code::usage, "--repeat must be at least 1");
   return by_type<bench_result>(o.type, [&]<class T>(T) { return bench_typed<T>(grid, o); });
+}
+
+read_bench_result bench_read(const process_grid& grid, const read_bench_options& o) {
+  check_sizes(1, o.block);
+  const io::file f(grid, o.path, io::file::mode::read);
+  const auto shape = f.shape(o.dataset);
+  if (shape.dims.size() != 2 || !shape.usable)
+    throw error(exit_code::input, o.dataset + " in " + o.path + " is not a 2-D dataset of numbers");
+  const index_t rows = o.column_major ? shape.dims[1] : shape.dims[0];
+  const index_t cols = o.column_major ? shape.dims[0] : shape.dims[1];
+  read_bench_result r;
+  dispatch_scalar(shape.type, [&]<class T>(T) {
+    dist_matrix<T> m(grid, rows, cols, o.block);
+    for (int rep = 0; rep < o.repeat; ++rep)
+      r.seconds.push_back(timed(grid, [&] { f.read(o.dataset, m, o.column_major); }));
+    r.bytes = static_cast<double>(rows) * static_cast<double>(cols) * sizeof(T);
+  });
+  return r;
 }
 
 demo_result demo(const process_grid& grid, const demo_options& o) {

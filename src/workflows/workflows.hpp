@@ -34,6 +34,21 @@ struct bench_result {
 // same ranks in the same run.
 bench_result bench(const process_grid& grid, const bench_options& options);
 
+struct read_bench_options {
+  std::string path, dataset = "A";
+  index_t block = default_block;
+  bool column_major = false;
+  int repeat = 3;
+};
+
+struct read_bench_result {
+  std::vector<double> seconds;  // one per repetition
+  double bytes = 0;             // size of the dataset in memory
+};
+
+// Reads one dataset of an HDF5 file into a distributed matrix, `repeat` times.
+read_bench_result bench_read(const process_grid& grid, const read_bench_options& options);
+
 struct demo_options {
   index_t n = 3000;
   index_t nrhs = 4;
