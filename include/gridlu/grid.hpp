@@ -81,6 +81,8 @@ private:
 namespace comm {
 
 double wtime();
+// The MPI library's own description of itself (first line).
+std::string library_version();
 void barrier(const communicator& c);
 
 template <class T>

@@ -71,6 +71,9 @@ private:
   std::unique_ptr<handles> h_;
 };
 
+// "HDF5 1.10.8"
+std::string library_version();
+
 // Everything in any HDF5 file, read on the calling rank alone (for `gridlu info`).
 struct description {
   struct item {

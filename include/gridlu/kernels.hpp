@@ -3,6 +3,7 @@
 #pragma once
 
 #include <cstdint>
+#include <string>
 
 #include "gridlu/layout.hpp"
 #include "gridlu/scalar.hpp"
@@ -35,6 +36,9 @@ void scale(index_t n, T alpha, T* x);
 // and benchmarks. ipiv gets min(m, n) 1-based row indices; returns LAPACK's info.
 template <scalar T>
 int lapack_getrf(index_t m, index_t n, T* a, index_t lda, std::int32_t* ipiv);
+
+// The BLAS library's build description.
+std::string library_version();
 
 // Threads of the BLAS library itself (one per rank is gridlu's default).
 void set_threads(int threads);

@@ -121,6 +121,14 @@ process_grid::process_grid(MPI_Comm parent, grid_shape shape) : shape_(shape) {
 namespace comm {
 
 double wtime() { return MPI_Wtime(); }
+
+std::string library_version() {
+  char text[MPI_MAX_LIBRARY_VERSION_STRING];
+  int len = 0;
+  MPI_Get_library_version(text, &len);
+  const std::string s(text, static_cast<std::size_t>(len));
+  return s.substr(0, s.find_first_of(",\n"));
+}
 void barrier(const communicator& c) { check(MPI_Barrier(c.get()), "MPI_Barrier"); }
 
 template <class T>

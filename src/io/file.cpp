@@ -536,6 +536,12 @@ std::optional<attribute> file::get_attribute(const std::string& object,
   return value;
 }
 
+std::string library_version() {
+  unsigned major = 0, minor = 0, release = 0;
+  H5get_libversion(&major, &minor, &release);
+  return "HDF5 " + std::to_string(major) + "." + std::to_string(minor) + "." + std::to_string(release);
+}
+
 description describe(const std::string& path) {
   silence_hdf5();
   struct stat st{};

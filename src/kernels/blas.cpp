@@ -144,6 +144,8 @@ int lapack_getrf<cd>(index_t m, index_t n, cd* a, index_t lda, std::int32_t* ipi
                         ld(lda), ipiv);
 }
 
+std::string library_version() { return openblas_get_config(); }
+
 void set_threads(int threads) { openblas_set_num_threads(threads); }
 
 }  // namespace gridlu::blas
