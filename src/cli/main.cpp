@@ -70,9 +70,7 @@ int run_read_bench(const workflows::read_bench_options& o, const common_options&
   const auto grid = make_grid(c);
   const auto r = workflows::bench_read(grid, o);
   if (grid.rank() != 0) return 0;
-  auto sorted = r.seconds;
-  std::sort(sorted.begin(), sorted.end());
-  const double median = sorted[sorted.size() / 2];
+  const double median = r.median;
   std::printf("gridlu bench --read: %s:%s (%.2f GB) into a %dx%d grid, block %lld\n",
               o.path.c_str(), o.dataset.c_str(), r.bytes * 1e-9, grid.prows(), grid.pcols(),
               static_cast<long long>(o.block));

@@ -6,25 +6,11 @@
 #include "gridlu/io.hpp"
 #include "gridlu/kernels.hpp"
 #include "gridlu/lu.hpp"
+#include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
 namespace gridlu::workflows {
 namespace {
-
-double median(std::vector<double> v) {
-  std::sort(v.begin(), v.end());
-  const std::size_t m = v.size() / 2;
-  return v.size() % 2 ? v[m] : 0.5 * (v[m - 1] + v[m]);
-}
-
-template <class F>
-double timed(const process_grid& grid, F&& f) {
-  comm::barrier(grid.all());
-  const double start = comm::wtime();
-  f();
-  comm::barrier(grid.all());
-  return comm::wtime() - start;
-}
 
 void check_sizes(index_t n, index_t block) {
   if (n < 1) throw error(exit_code::usage, "the order N must be at least 1");
@@ -125,6 +111,7 @@ read_bench_result bench_read(const process_grid& grid, const read_bench_options&
       r.seconds.push_back(timed(grid, [&] { f.read(o.dataset, m, o.column_major); }));
     r.bytes = static_cast<double>(rows) * static_cast<double>(cols) * sizeof(T);
   });
+  r.median = median(r.seconds);
   return r;
 }
 

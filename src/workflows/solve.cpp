@@ -10,21 +10,13 @@
 #include "gridlu/lu.hpp"
 #include "gridlu/version.hpp"
 #include "workflows/staged_output.hpp"
+#include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
 namespace gridlu::workflows {
 namespace {
 
 constexpr std::int64_t format_version = 1;
-
-template <class F>
-double timed(const process_grid& grid, F&& f) {
-  comm::barrier(grid.all());
-  const double start = comm::wtime();
-  f();
-  comm::barrier(grid.all());
-  return comm::wtime() - start;
-}
 
 // Identity of the input A: where it came from and a checksum of its content.
 struct fingerprint {

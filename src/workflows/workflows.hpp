@@ -43,7 +43,8 @@ struct read_bench_options {
 
 struct read_bench_result {
   std::vector<double> seconds;  // one per repetition
-  double bytes = 0;             // size of the dataset in memory
+  double median = 0;
+  double bytes = 0;  // size of the dataset in memory
 };
 
 // Reads one dataset of an HDF5 file into a distributed matrix, `repeat` times.
