@@ -250,7 +250,11 @@ int run_info(const std::string& path) {
   const auto d = io::describe(path);
   std::error_code ec;
   const auto bytes = std::filesystem::file_size(path, ec);
-  std::printf("file       %s (%.1f MB)\n", path.c_str(), static_cast<double>(bytes) / 1e6);
+  const char* units[] = {"B", "kB", "MB", "GB", "TB"};
+  double size = static_cast<double>(bytes);
+  int unit = 0;
+  for (; size >= 1000 && unit < 4; ++unit) size /= 1000;
+  std::printf("file       %s (%.*f %s)\n", path.c_str(), unit ? 1 : 0, size, units[unit]);
   std::string kind, format;
   for (const auto& [k, v] : d.attributes) {
     if (k == "gridlu_kind") kind = v;
@@ -259,11 +263,15 @@ int run_info(const std::string& path) {
   if (kind.empty()) std::printf("kind       foreign (not written by gridlu)\n");
   else std::printf("kind       gridlu %s, format %s\n", kind.c_str(), format.c_str());
   for (const auto& [k, v] : d.attributes) std::printf("attribute  %s = %s\n", k.c_str(), v.c_str());
-  for (const auto& item : d.datasets) {
-    std::printf("dataset    %s  %s  %s%s\n", item.path.c_str(), dims_text(item.shape.dims).c_str(),
-                item.shape.type.c_str(), item.shape.usable ? "" : " (not usable by gridlu)");
+  const auto attributes_of = [](const io::description::item& item) {
     for (const auto& [k, v] : item.attributes)
       std::printf("attribute  %s:%s = %s\n", item.path.c_str(), k.c_str(), v.c_str());
+  };
+  for (const auto& group : d.groups) attributes_of(group);
+  for (const auto& item : d.datasets) {
+    std::printf("dataset    %s  %s  %s\n", item.path.c_str(), dims_text(item.shape.dims).c_str(),
+                item.shape.type.c_str());
+    attributes_of(item);
   }
   return 0;
 }

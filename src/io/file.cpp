@@ -556,18 +556,22 @@ description describe(const std::string& path) {
     const handle root(check(H5Oopen(f.get(), "/", H5P_DEFAULT), "H5Oopen"), H5Oclose);
     d.attributes = all_attributes(root.get());
   }
-  std::vector<std::string> names;
+  using objects = std::vector<std::pair<std::string, H5O_type_t>>;
+  objects found;
   H5Ovisit(
       f.get(), H5_INDEX_NAME, H5_ITER_INC,
       [](hid_t, const char* name, const H5O_info_t* info, void* out) -> herr_t {
-        if (info->type == H5O_TYPE_DATASET)
-          static_cast<std::vector<std::string>*>(out)->push_back(std::string("/") + name);
+        if (std::strcmp(name, ".") != 0)
+          static_cast<objects*>(out)->emplace_back(std::string("/") + name, info->type);
         return 0;
       },
-      &names);
-  for (const auto& n : names) {
-    const handle dset(check(H5Dopen2(f.get(), n.c_str(), H5P_DEFAULT), "H5Dopen"), H5Dclose);
-    d.datasets.push_back({n, describe_dataset(dset.get()), all_attributes(dset.get())});
+      &found);
+  for (const auto& [name, type] : found) {
+    const handle obj(check(H5Oopen(f.get(), name.c_str(), H5P_DEFAULT), "H5Oopen"), H5Oclose);
+    if (type == H5O_TYPE_DATASET)
+      d.datasets.push_back({name, describe_dataset(obj.get()), all_attributes(obj.get())});
+    else if (type == H5O_TYPE_GROUP)
+      d.groups.push_back({name, {}, all_attributes(obj.get())});
   }
   return d;
 }
