@@ -96,9 +96,11 @@ struct slab_plan {
 
   int ranks() const { return grid.size(); }
   index_t rounds() const { return (along.block_count() + ranks() - 1) / ranks(); }
+  // Each rank walks through its own contiguous share of the file, one slab a round, so
+  // every reader streams sequentially (which the kernel's read-ahead rewards).
   index_t slab(index_t round, int rank) const {
-    const index_t s = round * ranks() + rank;
-    return s < along.block_count() ? s : -1;
+    const index_t s = rank * rounds() + round;
+    return round < rounds() && s < along.block_count() ? s : -1;
   }
   int my_along() const { return transposed ? grid.mycol() : grid.myrow(); }
   int my_across() const { return transposed ? grid.myrow() : grid.mycol(); }
