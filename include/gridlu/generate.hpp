@@ -3,6 +3,7 @@
 #pragma once
 
 #include <cstdint>
+#include <cstring>
 
 #include "gridlu/layout.hpp"
 #include "gridlu/scalar.hpp"
@@ -19,6 +20,18 @@ constexpr std::uint64_t mix64(std::uint64_t z) {
 // Uniform in [-1, 1) with 53 random bits.
 constexpr double unit_interval(std::uint64_t h) {
   return static_cast<double>(h >> 11) * 0x1.0p-52 - 1.0;
+}
+// Hash of a value at global position (i, j): the terms of content checksums, which XOR
+// them so that any grid, block size or reading order gives the same sum.
+template <class T>
+std::uint64_t entry_hash(index_t i, index_t j, const T& value) {
+  std::uint64_t h = mix64(static_cast<std::uint64_t>(i) * 0x9e3779b97f4a7c15ULL ^
+                          mix64(static_cast<std::uint64_t>(j)));
+  static_assert(sizeof(T) % 4 == 0);
+  std::uint32_t words[sizeof(T) / 4];
+  std::memcpy(words, &value, sizeof(T));
+  for (const auto w : words) h = mix64(h ^ w);
+  return h;
 }
 }  // namespace detail
 

@@ -48,6 +48,11 @@ public:
   // to T. With `transposed`, element [i][j] of the dataset is m(j, i).
   template <scalar T>
   void read(const std::string& name, dist_matrix<T>& m, bool transposed = false) const;
+  // content_checksum of the matrix that read(name, m, transposed) would fill, computed
+  // slab by slab from the file without holding it.
+  template <scalar T>
+  std::uint64_t checksum(const std::string& name, bool transposed = false) const;
+
   // Writes m as a row-major dataset; as 1-D when `one_dimensional` (m must be n x 1).
   template <scalar T>
   void write(const std::string& name, const dist_matrix<T>& m, bool one_dimensional = false);
@@ -60,6 +65,9 @@ public:
   void set_attribute(const std::string& object, const std::string& key, const attribute& value);
   std::optional<attribute> get_attribute(const std::string& object, const std::string& key) const;
 
+  // Pushes everything written so far to storage (MPI_File_sync underneath).
+  void flush();
+
   // Closes the file, flushing everything; errors surface here rather than silently in
   // the destructor.
   void close();
@@ -70,6 +78,19 @@ private:
   std::string path_;
   std::unique_ptr<handles> h_;
 };
+
+// Where a file is and which version of it: enough to notice that it changed.
+struct file_identity {
+  std::string path;  // absolute
+  std::int64_t size = 0;
+  double mtime = 0;  // seconds since the epoch
+};
+file_identity identify(const std::string& path);
+
+// Checksums are stored as text attributes ("0x" and 16 hex digits): 64-bit unsigned
+// integers do not survive every HDF5 reader.
+std::string checksum_text(std::uint64_t sum);
+std::optional<std::uint64_t> parse_checksum(const std::string& text);
 
 // "HDF5 1.10.8"
 std::string library_version();

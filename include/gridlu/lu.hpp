@@ -17,17 +17,27 @@ struct lu_result {
   // First column (0-based) whose pivot was exactly zero, or -1. The factorization goes
   // on past it, as LAPACK's does; its info is this plus one.
   index_t first_zero_pivot = -1;
+  // Columns eliminated so far: n when complete; pivots beyond it are not yet chosen.
+  index_t columns_done = 0;
 };
 
+
 struct lu_options {
-  // Called on every rank after each block step with the number of columns eliminated.
-  std::function<void(index_t)> on_step;
+  // Called on every rank after each block step with the state so far (a holds the
+  // matching working matrix); returning true stops the factorization there. Every rank
+  // must return the same.
+  std::function<bool(const lu_result&)> after_step;
 };
 
 // Overwrites a with L (unit lower, below the diagonal) and U, in LAPACK's convention:
 // P A = L U. Collective over a's grid.
 template <scalar T>
 lu_result factor(dist_matrix<T>& a, const lu_options& options = {});
+
+// Continues a factorization stopped after state.columns_done columns (a holding the
+// working matrix then, on any grid and block size): the state of a checkpoint.
+template <scalar T>
+lu_result factor(dist_matrix<T>& a, lu_result state, const lu_options& options = {});
 
 // Overwrites b (n x k, same grid and block size as lu) with inv(A) b.
 template <scalar T>

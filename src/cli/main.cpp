@@ -177,38 +177,70 @@ struct solve_cli {
   bool quiet = false, progress = false;
 };
 
-int run_solve(solve_cli& s, const common_options& c) {
-  const auto grid = make_grid(c);
-  auto& o = s.options;
-  if (grid.rank() == 0 && !s.quiet && (s.progress || isatty(fileno(stderr))))
-    o.progress = progress_printer();
-  const auto r = workflows::solve_file(grid, o);
+struct resume_cli {
+  workflows::resume_options options;
+  bool quiet = false, progress = false;
+};
+
+workflows::progress_callback progress_if(const process_grid& grid, bool quiet, bool forced) {
+  if (grid.rank() == 0 && !quiet && (forced || isatty(fileno(stderr)))) return progress_printer();
+  return {};
+}
+
+// The command that continues a stopped solve: this program, these ranks, that directory.
+std::string resume_command(const process_grid& grid, const std::string& dir) {
+  std::error_code ec;
+  auto self = std::filesystem::read_symlink("/proc/self/exe", ec).string();
+  if (ec) self = "gridlu";
+  return "mpiexec -n " + std::to_string(grid.size()) + " " + self + " resume " +
+         std::filesystem::absolute(dir).string();
+}
+
+// What rank 0 says after a solve or a resume, and the exit code.
+int report_solve(const process_grid& grid, const workflows::solve_result& r, index_t block, const std::string& checkpoint_dir, bool quiet, const common_options& c) {
+  if (grid.rank() != 0) return r.stopped ? static_cast<int>(exit_code::stopped) : 0;
+  auto j = grid_json(grid);
+  j.update({{"command", "solve"}, {"input", r.input}, {"output", r.output}, {"n", r.n}, {"nrhs", r.nrhs},
+            {"type", r.type}, {"block", block}});
+  if (!checkpoint_dir.empty()) {
+    const double total = lu_flops<double>(static_cast<double>(r.n));
+    const double left = lu_flops<double>(static_cast<double>(r.n - r.columns_done));
+    j["checkpoint"] = {{"dir", checkpoint_dir}, {"columns_done", r.columns_done},
+                       {"flops_done_percent", r.n ? 100.0 * (1.0 - left / total) : 0.0},
+                       {"factor_seconds_all_runs", r.factor_seconds_total},
+                       {"restarts", r.restarts}, {"checkpoints", r.checkpoints}};
+  }
+  if (r.stopped) {
+    std::printf("gridlu: stopped after column %lld of %lld with a checkpoint in %s\n"
+                "resume with: %s\n",
+                static_cast<long long>(r.columns_done), static_cast<long long>(r.n),
+                checkpoint_dir.c_str(), resume_command(grid, checkpoint_dir).c_str());
+    j.update({{"status", "stopped"}, {"times", {{"read", r.read_seconds}, {"factor", r.factor_seconds},
+                                                 {"write", r.write_seconds}, {"total", r.total_seconds}}}});
+    write_report(c.report, j);
+    return static_cast<int>(exit_code::stopped);
+  }
   const double worst = *std::max_element(r.backward_errors.begin(), r.backward_errors.end());
   const bool accepted = worst <= r.threshold;
-  if (grid.rank() != 0) return 0;
-  if (!s.quiet) {
-    std::printf("gridlu solve  %s -> %s\n", o.input.c_str(), o.output.c_str());
+  if (!quiet) {
+    std::printf("gridlu solve  %s -> %s\n", r.input.c_str(), r.output.c_str());
     std::printf("  system     n = %lld, %lld right-hand side(s), %s\n",
                 static_cast<long long>(r.n), static_cast<long long>(r.nrhs), r.type.c_str());
     std::printf("  grid       %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
-                grid.size(), static_cast<long long>(o.block));
+                grid.size(), static_cast<long long>(block));
     std::printf("  time       read %.2f s | %s %.2f s | solve %.2f s | check %.2f s | write %.2f s"
                 " | total %.2f s\n",
                 r.read_seconds, r.refactored ? "factor" : "factor (saved)", r.factor_seconds,
                 r.solve_seconds, r.check_seconds, r.write_seconds, r.total_seconds);
     if (r.refactored) std::printf("  speed      %.2f GFLOP/s in the factorization\n", r.gflops);
+    if (!checkpoint_dir.empty())
+      std::printf("  checkpoint %s: %lld written, %lld restart(s), %.1f s of factorization in all runs\n",
+                  checkpoint_dir.c_str(), static_cast<long long>(r.checkpoints),
+                  static_cast<long long>(r.restarts), r.factor_seconds_total);
     std::printf("  accuracy   worst backward error %.2e (accepted up to 10 n eps = %.2e): %s\n",
                 worst, r.threshold, accepted ? "ACCEPTED" : "SUSPECT");
   }
-  auto j = grid_json(grid);
-  j.update({{"command", "solve"},
-            {"input", o.input},
-            {"output", o.output},
-            {"n", r.n},
-            {"nrhs", r.nrhs},
-            {"type", r.type},
-            {"block", o.block},
-            {"refactored", r.refactored},
+  j.update({{"refactored", r.refactored},
             {"times",
              {{"read", r.read_seconds},
               {"factor", r.factor_seconds},
@@ -223,6 +255,28 @@ int run_solve(solve_cli& s, const common_options& c) {
             {"status", accepted ? "solved" : "suspect"}});
   write_report(c.report, j);
   return 0;
+}
+
+int run_solve(solve_cli& s, const common_options& c) {
+  const auto grid = make_grid(c);
+  auto& o = s.options;
+  o.progress = progress_if(grid, s.quiet, s.progress);
+  const auto r = workflows::solve_file(grid, o);
+  return report_solve(grid, r, o.block, o.checkpoint_dir, s.quiet, c);
+}
+
+int run_resume(resume_cli& s, const common_options& c) {
+  const auto grid = make_grid(c);
+  auto& o = s.options;
+  o.progress = progress_if(grid, s.quiet, s.progress);
+  const auto r = workflows::resume_dir(grid, o);
+  if (r.already_complete) {
+    if (grid.rank() == 0)
+      std::printf("gridlu: the solve in %s is complete; X is in %s (nothing to do)\n", o.dir.c_str(),
+                  r.output.c_str());
+    return 0;
+  }
+  return report_solve(grid, r, o.block ? o.block : workflows::default_block, o.dir, s.quiet, c);
 }
 
 int run_generate(const workflows::generate_options& o, const common_options& c) {
@@ -280,6 +334,7 @@ int run_info(const std::string& path) {
 
 int main(int argc, char** argv) {
   gridlu::mpi_session mpi(argc, argv);
+  const double started = MPI_Wtime();
   int rank = 0;
   MPI_Comm_rank(MPI_COMM_WORLD, &rank);
 
@@ -340,12 +395,21 @@ int main(int argc, char** argv) {
   solve_cmd->add_flag("--force", so.force, "replace OUTPUT (and the --save-factors file) if it exists");
   solve_cmd->add_flag("--quiet", solve.quiet, "print nothing but errors");
   solve_cmd->add_flag("--progress", solve.progress, "show factorization progress even when stderr is not a terminal");
+  solve_cmd->add_option("--checkpoint", so.checkpoint_dir,
+                        "keep checkpoints in this directory; SIGTERM, SIGUSR1 and SIGINT then stop "
+                        "with a checkpoint (exit 5)");
+  solve_cmd->add_option("--checkpoint-every", so.checkpoint_every, "minutes between checkpoints")
+      ->check(CLI::NonNegativeNumber);
+  solve_cmd->add_option("--stop-after", so.stop_after,
+                        "time budget in minutes: stop with a checkpoint early enough to end inside it")
+      ->check(CLI::NonNegativeNumber);
   add_common(solve_cmd, common);
   solve_cmd->footer(
       "Examples:\n"
       "  mpiexec -n 4 gridlu solve plate.h5 --out charges.h5\n"
       "  mpiexec -n 4 gridlu solve plate.h5 --out x.h5 --save-factors plate-lu.h5\n"
-      "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out x2.h5\n\n" +
+      "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out x2.h5\n"
+      "  mpiexec -n 64 gridlu solve big.h5 --out x.h5 --checkpoint ckpt --checkpoint-every 30 --stop-after 710\n\n" +
       std::string(exit_codes_help));
 
   workflows::generate_options gen;
@@ -361,6 +425,22 @@ int main(int argc, char** argv) {
   random_cmd->add_flag("--force", gen.force, "replace the file if it exists");
   add_common(random_cmd, common);
   random_cmd->footer("Example:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5");
+
+  resume_cli resume;
+  auto* resume_cmd = app.add_subcommand("resume", "finish a checkpointed solve, on any number of ranks");
+  resume_cmd->add_option("dir", resume.options.dir, "the solve's checkpoint directory")->required();
+  resume_cmd->add_option("--block", resume.options.block, "block size nb (default 64; any value works)");
+  resume_cmd->add_option("--out", resume.options.output, "write X here instead of the recorded OUTPUT");
+  resume_cmd->add_flag("--force", resume.options.force, "replace OUTPUT if it exists");
+  resume_cmd->add_option("--checkpoint-every", resume.options.checkpoint_every, "minutes between checkpoints")
+      ->check(CLI::NonNegativeNumber);
+  resume_cmd->add_option("--stop-after", resume.options.stop_after, "time budget in minutes")
+      ->check(CLI::NonNegativeNumber);
+  resume_cmd->add_flag("--quiet", resume.quiet, "print nothing but errors");
+  resume_cmd->add_flag("--progress", resume.progress, "show progress even when stderr is not a terminal");
+  add_common(resume_cmd, common);
+  resume_cmd->footer("Example:\n  mpiexec -n 128 gridlu resume ckpt --stop-after 710\n\n" +
+                     std::string(exit_codes_help));
 
   std::string info_path;
   auto* info_cmd = app.add_subcommand("info", "show what an HDF5 file holds");
@@ -383,8 +463,19 @@ int main(int argc, char** argv) {
     }
     if (*bench_cmd) return run_bench(bench, common);
     if (*demo_cmd) return run_demo(demo, common);
-    if (*solve_cmd) return run_solve(solve, common);
+    if (*solve_cmd) {
+      so.checkpoint_every *= 60;
+      so.stop_after *= 60;
+      so.started = started;
+      return run_solve(solve, common);
+    }
     if (*gen_cmd) return run_generate(gen, common);
+    if (*resume_cmd) {
+      resume.options.checkpoint_every *= 60;
+      resume.options.stop_after *= 60;
+      resume.options.started = started;
+      return run_resume(resume, common);
+    }
     return run_info(info_path);
   } catch (const gridlu::error& e) {
     // Errors reaching here were agreed by all ranks (or raised by all alike).

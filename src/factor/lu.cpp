@@ -77,20 +77,25 @@ void factor_panel(dist_matrix<T>& a, index_t j0, index_t jb, index_t lc0, std::s
 }  // namespace
 
 template <scalar T>
-lu_result factor(dist_matrix<T>& a, const lu_options& options) {
+lu_result factor(dist_matrix<T>& a, lu_result state, const lu_options& options) {
   if (a.rows() != a.cols()) throw error(exit_code::usage, "LU needs a square matrix");
   const auto& grid = a.grid();
   const auto& rows = a.layout().rows;
   const auto& cols = a.layout().cols;
   const int myrow = grid.myrow(), mycol = grid.mycol();
   const index_t n = a.rows(), mloc = a.local_rows(), nloc = a.local_cols(), ld = a.ld();
+  if (state.columns_done < 0 || state.columns_done > n)
+    throw error(exit_code::internal, "factor: columns_done out of range");
 
-  lu_result result;
+  lu_result result = std::move(state);
   result.pivots.resize(static_cast<std::size_t>(n));
   std::vector<T> panel, urow;
   std::vector<index_t> step;  // the panel's pivots, then its first zero-pivot column
-  for (index_t k = 0; k < rows.block_count(); ++k) {
-    const index_t j0 = rows.block_start(k), jb = rows.block_size(k);
+  // Panels follow the distribution's blocks; a resumed factorization may start inside
+  // one (it was cut with another block size), whose rest is then the first panel.
+  for (index_t j0 = result.columns_done; j0 < n; j0 = result.columns_done) {
+    const index_t k = rows.block_of(j0);
+    const index_t jb = rows.block_start(k) + rows.block_size(k) - j0;
     const int pr = rows.block_owner(k), pc = cols.block_owner(k);
     const index_t lr0 = rows.local_begin(myrow, j0), mp = mloc - lr0;
     const index_t lc0 = cols.local_begin(mycol, j0);
@@ -126,12 +131,20 @@ lu_result factor(dist_matrix<T>& a, const lu_options& options) {
     const index_t lr1 = rows.local_begin(myrow, j0 + jb);
     blas::gemm(op::none, op::none, mloc - lr1, nr, jb, T(-1), panel.data() + (lr1 - lr0), mp,
                urow.data(), jb, T(1), a.at(lr1, lc1), ld);
-    if (options.on_step) options.on_step(j0 + jb);
+    result.columns_done = j0 + jb;
+    if (options.after_step && options.after_step(result)) break;
   }
   return result;
 }
 
-#define INSTANTIATE(T) template lu_result factor<T>(dist_matrix<T>&, const lu_options&);
+template <scalar T>
+lu_result factor(dist_matrix<T>& a, const lu_options& options) {
+  return factor(a, lu_result{}, options);
+}
+
+#define INSTANTIATE(T)                                                                \
+  template lu_result factor<T>(dist_matrix<T>&, lu_result, const lu_options&);       \
+  template lu_result factor<T>(dist_matrix<T>&, const lu_options&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE
 

@@ -3,10 +3,13 @@
 #include <unistd.h>
 
 #include <algorithm>
+#include <charconv>
+#include <filesystem>
 #include <cstdio>
 #include <cstring>
 #include <numeric>
 
+#include "gridlu/generate.hpp"
 #include "gridlu/io.hpp"
 #include "instantiate.hpp"
 #include "io/hdf5.hpp"
@@ -320,6 +323,37 @@ void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) con
 }
 
 template <scalar T>
+std::uint64_t file::checksum(const std::string& name, bool transposed) const {
+  const auto dset = open_dataset(h_->file.get(), name, path_);
+  const auto s = describe_dataset(dset.get());
+  if (s.dims.empty() || s.dims.size() > 2 || !s.usable)
+    throw error(exit_code::input, quoted(name) + " in " + path_ + " is not a matrix of numbers");
+  const index_t file_rows = s.dims[0], file_cols = s.dims.size() == 2 ? s.dims[1] : 1;
+  const cyclic_map slabs(file_rows, 64, 1);
+  std::uint64_t sum = 0;
+  comm::together(grid_->all(), [&] {
+    for (index_t b = grid_->rank(); b < slabs.block_count(); b += grid_->size()) {
+      const index_t first = slabs.block_start(b), h = slabs.block_size(b);
+      const auto slab = read_slab<T>(dset.get(), s.is_complex, first, h, file_cols,
+                                     quoted(name) + " from " + path_);
+      for (index_t t = 0; t < h; ++t)
+        for (index_t c = 0; c < file_cols; ++c) {
+          const T& v = slab[t * file_cols + c];
+          sum ^= transposed ? detail::entry_hash(c, first + t, v) : detail::entry_hash(first + t, c, v);
+        }
+    }
+  });
+  comm::bit_xor(grid_->all(), &sum, 1);
+  return sum;
+}
+
+void file::flush() {
+  comm::together(grid_->all(), [&] {
+    check(H5Fflush(h_->file.get(), H5F_SCOPE_GLOBAL), "cannot flush " + path_);
+  });
+}
+
+template <scalar T>
 void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dimensional) {
   const slab_plan plan = make_plan(*grid_, m, false);
   const index_t rows = m.rows(), cols = m.cols();
@@ -538,6 +572,27 @@ std::optional<attribute> file::get_attribute(const std::string& object,
   return value;
 }
 
+file_identity identify(const std::string& path) {
+  struct stat st{};
+  stat(path.c_str(), &st);
+  return {std::filesystem::absolute(path).string(), static_cast<std::int64_t>(st.st_size),
+          static_cast<double>(st.st_mtim.tv_sec) + 1e-9 * static_cast<double>(st.st_mtim.tv_nsec)};
+}
+
+std::string checksum_text(std::uint64_t sum) {
+  char text[19];
+  std::snprintf(text, sizeof text, "0x%016llx", static_cast<unsigned long long>(sum));
+  return text;
+}
+
+std::optional<std::uint64_t> parse_checksum(const std::string& text) {
+  if (text.size() != 18 || text.rfind("0x", 0) != 0) return std::nullopt;
+  std::uint64_t v = 0;
+  const auto [end, ec] = std::from_chars(text.data() + 2, text.data() + text.size(), v, 16);
+  if (ec != std::errc{} || end != text.data() + text.size()) return std::nullopt;
+  return v;
+}
+
 std::string library_version() {
   unsigned major = 0, minor = 0, release = 0;
   H5get_libversion(&major, &minor, &release);
@@ -580,7 +635,8 @@ description describe(const std::string& path) {
 
 #define INSTANTIATE(T)                                                                   \
   template void file::read<T>(const std::string&, dist_matrix<T>&, bool) const;          \
-  template void file::write<T>(const std::string&, const dist_matrix<T>&, bool);
+  template void file::write<T>(const std::string&, const dist_matrix<T>&, bool);         \
+  template std::uint64_t file::checksum<T>(const std::string&, bool) const;
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE
 

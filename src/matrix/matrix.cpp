@@ -121,19 +121,9 @@ std::uint64_t content_checksum(const dist_matrix<T>& a) {
   std::uint64_t sum = 0;
   const auto& layout = a.layout();
   for (index_t lj = 0; lj < a.local_cols(); ++lj) {
-    const auto j = static_cast<std::uint64_t>(layout.cols.global(a.grid().mycol(), lj));
-    for (index_t li = 0; li < a.local_rows(); ++li) {
-      const auto i = static_cast<std::uint64_t>(layout.rows.global(a.grid().myrow(), li));
-      std::uint64_t h = detail::mix64(i * 0x9e3779b97f4a7c15ULL ^ detail::mix64(j));
-      unsigned char bytes[sizeof(T)];
-      std::memcpy(bytes, a.at(li, lj), sizeof(T));
-      for (std::size_t k = 0; k < sizeof(T); k += 4) {
-        std::uint32_t w = 0;
-        std::memcpy(&w, bytes + k, 4);
-        h = detail::mix64(h ^ w);
-      }
-      sum ^= h;
-    }
+    const index_t j = layout.cols.global(a.grid().mycol(), lj);
+    for (index_t li = 0; li < a.local_rows(); ++li)
+      sum ^= detail::entry_hash(layout.rows.global(a.grid().myrow(), li), j, *a.at(li, lj));
   }
   comm::bit_xor(a.grid().all(), &sum, 1);
   return sum;

@@ -1,11 +1,11 @@
-#include <sys/stat.h>
-
 #include <algorithm>
+#include <csignal>
 #include <cstdio>
 #include <filesystem>
 
 #include "gridlu/accuracy.hpp"
 #include "gridlu/generate.hpp"
+#include "gridlu/checkpoint.hpp"
 #include "gridlu/io.hpp"
 #include "gridlu/lu.hpp"
 #include "gridlu/version.hpp"
@@ -17,28 +17,6 @@ namespace gridlu::workflows {
 namespace {
 
 constexpr std::int64_t format_version = 1;
-
-// Identity of the input A: where it came from and a checksum of its content.
-struct fingerprint {
-  std::string path;
-  std::int64_t size = 0;
-  double mtime = 0;
-  std::uint64_t checksum = 0;
-};
-
-fingerprint stat_file(const std::string& path) {
-  struct stat st{};
-  stat(path.c_str(), &st);
-  return {std::filesystem::absolute(path).string(), static_cast<std::int64_t>(st.st_size),
-          static_cast<double>(st.st_mtim.tv_sec) + 1e-9 * static_cast<double>(st.st_mtim.tv_nsec),
-          0};
-}
-
-std::string hex(std::uint64_t v) {
-  char text[19];
-  std::snprintf(text, sizeof text, "0x%016llx", static_cast<unsigned long long>(v));
-  return text;
-}
 
 std::string entry_name(const std::string& dataset, std::pair<index_t, index_t> at, bool one_d) {
   return dataset + "[" + std::to_string(at.first) + (one_d ? "" : ", " + std::to_string(at.second)) +
@@ -69,22 +47,170 @@ double number_attribute(const io::file& f, const std::string& key) {
   return -1;
 }
 
+// Shape checks of a dataset that must hold numbers gridlu can solve with.
+void require_numbers(const io::dataset_shape& s, const std::string& name, const std::string& path) {
+  if (!s.usable)
+    throw error(exit_code::input, name + " in " + path + " holds " + s.type +
+                                      "; gridlu reads float32, float64 and complex (compound of "
+                                      "floats named r and i)");
+}
+
+// The input files of a solve, opened and checked.
+struct inputs {
+  io::file input;
+  std::optional<io::file> other;  // B's own file, with --rhs-file
+  index_t n = 0;
+  io::dataset_shape a_shape, b_shape;
+  const io::file& rhs() const { return other ? *other : input; }
+};
+
+inputs open_inputs(const process_grid& grid, const solve_options& o) {
+  inputs in{io::file(grid, o.input, io::file::mode::read), std::nullopt, 0, {}, {}};
+  if (!o.rhs_file.empty()) in.other.emplace(grid, o.rhs_file, io::file::mode::read);
+  const auto& a = in.a_shape = in.input.shape(o.matrix_dataset);
+  const std::string a_name = o.matrix_dataset + " in " + o.input;
+  if (a.dims.size() != 2)
+    throw error(exit_code::input, a_name + " has " + std::to_string(a.dims.size()) +
+                                      " dimensions; the matrix must be 2-D");
+  if (a.dims[0] != a.dims[1])
+    throw error(exit_code::input, a_name + " is " + std::to_string(a.dims[0]) + " x " +
+                                      std::to_string(a.dims[1]) + "; the matrix must be square");
+  if (a.dims[0] < 1) throw error(exit_code::input, a_name + " is empty");
+  require_numbers(a, o.matrix_dataset, o.input);
+  in.n = a.dims[0];
+
+  const auto& b = in.b_shape = in.rhs().shape(o.rhs_dataset);
+  const std::string b_name = o.rhs_dataset + " in " + in.rhs().path();
+  require_numbers(b, o.rhs_dataset, in.rhs().path());
+  const std::string n = std::to_string(in.n);
+  if (b.dims.empty() || b.dims.size() > 2 || b.dims[0] != in.n)
+    throw error(exit_code::input, b_name + " must have " + n + " rows (A is " + n + " x " + n +
+                                      ") and one or two dimensions");
+  if (b.dims.size() == 2 && b.dims[1] < 1) throw error(exit_code::input, b_name + " has no columns");
+  if (b.is_complex && !a.is_complex) throw error(exit_code::input, b_name + " is complex but A is real");
+  return in;
+}
+
+// Set by SIGTERM, SIGUSR1 and SIGINT while a checkpointed factorization runs; the ranks
+// look at it between block steps and agree to stop together.
+volatile std::sig_atomic_t stop_requested = 0;
+extern "C" void request_stop(int) { stop_requested = 1; }
+
+class stop_signals {
+public:
+  stop_signals() {
+    stop_requested = 0;
+    struct sigaction sa{};
+    sa.sa_handler = request_stop;
+    sigemptyset(&sa.sa_mask);
+    for (std::size_t k = 0; k < std::size(signals_); ++k) sigaction(signals_[k], &sa, &saved_[k]);
+  }
+  ~stop_signals() {
+    for (std::size_t k = 0; k < std::size(signals_); ++k) sigaction(signals_[k], &saved_[k], nullptr);
+  }
+  stop_signals(const stop_signals&) = delete;
+  stop_signals& operator=(const stop_signals&) = delete;
+
+private:
+  static constexpr int signals_[] = {SIGTERM, SIGUSR1, SIGINT};
+  struct sigaction saved_[3]{};
+};
+
+// The factorization, with checkpoints when a directory is given: periodic ones, and a
+// last one before stopping on a signal or when the time budget would run out.
 template <scalar T>
-solve_result solve_typed(const process_grid& grid, const solve_options& o, const io::file& input,
-                         const io::file& rhs_file, index_t n, const io::dataset_shape& b_shape,
-                         staged_output& out, staged_output* factors_out) {
+bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_matrix<T>& a,
+                         lu_result& lu, checkpoint::header& ck, solve_result& r) {
+  const index_t n = a.rows();
+  const double total = lu_flops<T>(static_cast<double>(n));
   const double start = comm::wtime();
+  const double done_before = total - lu_flops<T>(static_cast<double>(n - lu.columns_done));
+  const bool checkpointing = !o.checkpoint_dir.empty();
+  // Until a checkpoint has been timed, assume the disk writes (and reads back) 100 MB/s.
+  double save_estimate = 2.0 * static_cast<double>(n) * static_cast<double>(n) * sizeof(T) / 100e6 + 0.5;
+  double last_save = start;
+  index_t saved_at = -1;
+  const auto save = [&](const lu_result& state) {
+    const index_t done = state.columns_done;
+    ck.done.columns_done = done;
+    ck.done.elapsed_seconds = r.factor_seconds_total + (comm::wtime() - start);
+    ++ck.done.checkpoints;
+    save_estimate = timed(grid, [&] { checkpoint::save(grid, o.checkpoint_dir, a, state, ck); });
+    r.write_seconds += save_estimate;
+    last_save = comm::wtime();
+    saved_at = done;
+  };
+  constexpr std::int64_t signal_flag = 1, periodic_flag = 2, budget_flag = 4;
+  lu_options lo;
+  lo.after_step = [&](const lu_result& state) {
+    const index_t done = state.columns_done;
+    const double now = comm::wtime(), seconds = now - start;
+    const double flops = total - lu_flops<T>(static_cast<double>(n - done)) - done_before;
+    if (o.progress)
+      o.progress(1.0 - lu_flops<T>(static_cast<double>(n - done)) / total, seconds,
+                 seconds > 0 ? flops / seconds * 1e-9 : 0.0);
+    if (!checkpointing) return false;
+    std::int64_t flags = stop_requested ? signal_flag : 0;
+    if (o.checkpoint_every > 0 && now - last_save >= o.checkpoint_every) flags |= periodic_flag;
+    if (o.stop_after > 0) {
+      // Go on only if one more step and a checkpoint still fit in the budget.
+      const double rate = seconds > 0 ? flops / seconds : 0.0;
+      const index_t next = std::min(n, done + a.block());
+      const double step_flops = lu_flops<T>(static_cast<double>(n - done)) -
+                                lu_flops<T>(static_cast<double>(n - next));
+      const double step = rate > 0 ? step_flops / rate : 0.0;
+      const double tail = done == n ? 1.5 * r.read_seconds + 0.5 : 0.0;  // solve, check, write
+      if (now - o.started + step + tail + 1.25 * save_estimate + 0.5 > o.stop_after)
+        flags |= budget_flag;
+    }
+    comm::max(grid.all(), &flags, 1);
+    if (flags & (signal_flag | budget_flag)) {
+      save(state);
+      r.stopped = true;
+      return true;
+    }
+    if (flags & periodic_flag) save(state);
+    return false;
+  };
+  const double seconds = timed(grid, [&] { lu = factor(a, std::move(lu), lo); });
+  r.factor_seconds = seconds;
+  r.factor_seconds_total += seconds;
+  r.gflops = (total - done_before) / seconds * 1e-9;
+  r.columns_done = lu.columns_done;
+  // With everything eliminated, one last checkpoint covers the solve phase too.
+  if (checkpointing && !r.stopped && saved_at != n) save(lu);
+  r.checkpoints = ck.done.checkpoints;
+  return !r.stopped;
+}
+
+template <class V>
+void set_all(io::file& f, const std::string& object, std::initializer_list<std::pair<const char*, V>> attrs) {
+  for (const auto& [key, value] : attrs) f.set_attribute(object, key, value);
+}
+
+template <scalar T>
+solve_result solve_typed(const process_grid& grid, const solve_options& o, const inputs& in,
+                         const std::optional<checkpoint::header>& resumed) {
+  const double start = comm::wtime();
+  const index_t n = in.n;
   solve_result r;
   r.n = n;
   r.type = std::string(scalar_traits<T>::name);
-  const bool rhs_1d = b_shape.dims.size() == 1;
-  r.nrhs = rhs_1d ? 1 : b_shape.dims[1];
+  r.input = o.input;
+  r.output = o.output;
+  const bool rhs_1d = in.b_shape.dims.size() == 1;
+  r.nrhs = rhs_1d ? 1 : in.b_shape.dims[1];
   r.threshold = 10.0 * static_cast<double>(n) * epsilon<T>();
-  fingerprint source = stat_file(o.input);
+  staged_output out(grid, o.output, o.force);
+  std::optional<staged_output> factors_out;
+  if (!o.save_factors.empty()) factors_out.emplace(grid, o.save_factors, o.force);
+  if (!o.checkpoint_dir.empty())
+    checkpoint::prepare(grid, o.checkpoint_dir, static_cast<double>(n) * static_cast<double>(n) * sizeof(T));
+  const io::file_identity source = io::identify(o.input);
 
-  dist_matrix<T> a(grid, n, n, o.block);
-  dist_matrix<T> b(grid, n, r.nrhs, o.block);
+  dist_matrix<T> a(grid, n, n, o.block), b(grid, n, r.nrhs, o.block);
   lu_result lu;
+  checkpoint::header ck;
 
   std::optional<io::file> saved;
   if (!o.factors.empty()) {
@@ -92,8 +218,7 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
     saved.emplace(grid, o.factors, io::file::mode::read);
     if (text_attribute(*saved, "gridlu_kind") != "factors")
       throw error(exit_code::input, o.factors + " is not a gridlu factors file");
-    if (number_attribute(*saved, "n") != static_cast<double>(n) ||
-        text_attribute(*saved, "type") != r.type)
+    if (number_attribute(*saved, "n") != static_cast<double>(n) || text_attribute(*saved, "type") != r.type)
       throw error(exit_code::input, "the factors in " + o.factors + " are not of a " +
                                         std::to_string(n) + " x " + std::to_string(n) + " " +
                                         r.type + " matrix like " + o.input);
@@ -107,51 +232,66 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
     if (saved) {
       saved->read("LU", a);
       lu.pivots = saved->read_indices("pivots");
+      lu.columns_done = n;
       bool valid = static_cast<index_t>(lu.pivots.size()) == n;
       for (index_t i = 0; valid && i < n; ++i) valid = lu.pivots[i] >= i && lu.pivots[i] < n;
       if (!valid) throw error(exit_code::input, "the pivots in " + o.factors + " are damaged");
+    } else if (resumed) {
+      // The inputs must be the ones the checkpoint was made from.
+      if (in.input.checksum<T>(o.matrix_dataset, o.column_major) != resumed->what.a_checksum)
+        throw error(exit_code::input, o.matrix_dataset + " in " + o.input +
+                                          " changed since the checkpoint was made; it cannot be resumed");
+      lu = checkpoint::load(grid, o.checkpoint_dir, a);
     } else {
-      input.read(o.matrix_dataset, a, o.column_major);
+      in.input.read(o.matrix_dataset, a, o.column_major);
       refuse_nonfinite(a, o.matrix_dataset, o.input, false, o.column_major);
     }
-    rhs_file.read(o.rhs_dataset, b, false);
-    refuse_nonfinite(b, o.rhs_dataset, rhs_file.path(), rhs_1d, false);
+    in.rhs().read(o.rhs_dataset, b, false);
+    refuse_nonfinite(b, o.rhs_dataset, in.rhs().path(), rhs_1d, false);
   });
+
   if (!saved) {
-    source.checksum = content_checksum(a);
-    const double total = lu_flops<T>(static_cast<double>(n));
-    const double factor_start = comm::wtime();
-    lu_options lo;
-    if (o.progress)
-      lo.on_step = [&](index_t done) {
-        const double fraction = 1.0 - lu_flops<T>(static_cast<double>(n - done)) / total;
-        const double seconds = comm::wtime() - factor_start;
-        o.progress(fraction, seconds, seconds > 0 ? fraction * total / seconds * 1e-9 : 0.0);
-      };
-    r.factor_seconds = timed(grid, [&] { lu = factor(a, lo); });
-    r.gflops = total / r.factor_seconds * 1e-9;
+    const std::uint64_t b_sum = content_checksum(b);
+    if (resumed) {
+      ck = *resumed;
+      if (b_sum != ck.what.b_checksum)
+        throw error(exit_code::input, o.rhs_dataset + " in " + in.rhs().path() +
+                                          " changed since the checkpoint was made; it cannot be resumed");
+      ++ck.done.restarts;
+      ck.what.output = o.output;
+      r.factor_seconds_total = ck.done.elapsed_seconds;
+    } else {
+      const auto rhs_identity = io::identify(in.rhs().path());
+      ck.what = {o.input, o.output, o.matrix_dataset, o.rhs_dataset, o.rhs_file, o.save_factors,
+                 o.column_major, r.type, n, r.nrhs, source.size, rhs_identity.size, source.mtime,
+                 rhs_identity.mtime, content_checksum(a), b_sum};
+    }
+    r.restarts = ck.done.restarts;
+    if (!factor_checkpointed(grid, o, a, lu, ck, r)) {
+      r.total_seconds = comm::wtime() - start;
+      return r;
+    }
     if (lu.first_zero_pivot >= 0)
-      throw error(exit_code::singular,
-                  "A is exactly singular: the pivot of column " + std::to_string(lu.first_zero_pivot) +
-                      " (0-based) is zero; no solution written");
+      throw error(exit_code::singular, "A is exactly singular: the pivot of column " +
+                                           std::to_string(lu.first_zero_pivot) +
+                                           " (0-based) is zero; no solution written");
     if (factors_out) {
       r.write_seconds += timed(grid, [&] {
         io::file f(grid, factors_out->temporary(), io::file::mode::create);
         f.write("LU", a);
         f.write_indices("pivots", lu.pivots);
-        const std::pair<const char*, io::attribute> attrs[] = {
-            {"gridlu_kind", std::string("factors")},
-            {"gridlu_format", format_version},
-            {"gridlu_version", std::string(version)},
-            {"type", r.type},
-            {"n", std::int64_t{n}},
-            {"source_file", source.path},
-            {"source_size", source.size},
-            {"source_mtime", source.mtime},
-            {"source_checksum", hex(source.checksum)},
-            {"matrix_dataset", o.matrix_dataset},
-            {"column_major", std::int64_t{o.column_major}}};
-        for (const auto& [key, value] : attrs) f.set_attribute("/", key, value);
+        set_all<io::attribute>(f, "/",
+                               {{"gridlu_kind", std::string("factors")},
+                                {"gridlu_format", format_version},
+                                {"gridlu_version", std::string(version)},
+                                {"type", r.type},
+                                {"n", std::int64_t{n}},
+                                {"source_file", source.path},
+                                {"source_size", source.size},
+                                {"source_mtime", source.mtime},
+                                {"source_checksum", io::checksum_text(ck.what.a_checksum)},
+                                {"matrix_dataset", o.matrix_dataset},
+                                {"column_major", std::int64_t{o.column_major}}});
         f.close();
         factors_out->commit();
       });
@@ -164,10 +304,10 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
 
   // The factors overwrote A: read it again into the same storage for the residual.
   r.check_seconds = timed(grid, [&] {
-    input.read(o.matrix_dataset, a, o.column_major);
+    in.input.read(o.matrix_dataset, a, o.column_major);
     if (saved) {
       refuse_nonfinite(a, o.matrix_dataset, o.input, false, o.column_major);
-      if (text_attribute(*saved, "source_checksum") != hex(content_checksum(a)))
+      if (text_attribute(*saved, "source_checksum") != io::checksum_text(content_checksum(a)))
         throw error(exit_code::input, "the factors in " + o.factors + " do not belong to " +
                                           o.input + ": its matrix differs from theirs");
     }
@@ -178,35 +318,33 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
     io::file f(grid, out.temporary(), io::file::mode::create);
     f.write("X", x, rhs_1d);
     const double worst = *std::max_element(r.backward_errors.begin(), r.backward_errors.end());
-    const std::pair<const char*, io::attribute> file_attrs[] = {
-        {"gridlu_kind", std::string("solution")},
-        {"gridlu_format", format_version},
-        {"gridlu_version", std::string(version)},
-        {"source_file", source.path}};
-    for (const auto& [key, value] : file_attrs) f.set_attribute("/", key, value);
-    const std::pair<const char*, io::attribute> x_attrs[] = {
-        {"backward_error", worst},
-        {"backward_errors", r.backward_errors},
-        {"factor_seconds", r.factor_seconds},
-        {"gflops", r.gflops},
-        {"grid", std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols())},
-        {"block", std::int64_t{o.block}},
-        {"ranks", std::int64_t{grid.size()}},
-        {"type", r.type}};
-    for (const auto& [key, value] : x_attrs) f.set_attribute("/X", key, value);
+    set_all<io::attribute>(f, "/",
+                           {{"gridlu_kind", std::string("solution")},
+                            {"gridlu_format", format_version},
+                            {"gridlu_version", std::string(version)},
+                            {"source_file", source.path}});
+    set_all<io::attribute>(f, "/X",
+                           {{"backward_error", worst},
+                            {"backward_errors", r.backward_errors},
+                            {"factor_seconds", r.factor_seconds},
+                            {"gflops", r.gflops},
+                            {"grid", std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols())},
+                            {"block", std::int64_t{o.block}},
+                            {"ranks", std::int64_t{grid.size()}},
+                            {"type", r.type}});
     f.close();
     out.commit();
   });
+  if (!o.checkpoint_dir.empty()) checkpoint::mark_complete(grid, o.checkpoint_dir, o.output);
   r.total_seconds = comm::wtime() - start;
   return r;
 }
 
-// Shape checks of a dataset that must hold numbers gridlu can solve with.
-void require_numbers(const io::dataset_shape& s, const std::string& name, const std::string& path) {
-  if (!s.usable)
-    throw error(exit_code::input, name + " in " + path + " holds " + s.type +
-                                      "; gridlu reads float32, float64 and complex (compound of "
-                                      "floats named r and i)");
+solve_result solve_inputs(const process_grid& grid, const solve_options& o, const inputs& in,
+                          const std::optional<checkpoint::header>& resumed) {
+  solve_result result;
+  dispatch_scalar(in.a_shape.type, [&]<class T>(T) { result = solve_typed<T>(grid, o, in, resumed); });
+  return result;
 }
 
 }  // namespace
@@ -215,45 +353,47 @@ solve_result solve_file(const process_grid& grid, const solve_options& o) {
   if (o.block < 1) throw error(exit_code::usage, "the block size must be at least 1");
   if (!o.factors.empty() && !o.save_factors.empty())
     throw error(exit_code::usage, "--factors and --save-factors do not go together");
-  staged_output out(grid, o.output, o.force);
-  std::optional<staged_output> factors_out;
-  if (!o.save_factors.empty()) factors_out.emplace(grid, o.save_factors, o.force);
+  if (!o.factors.empty() && !o.checkpoint_dir.empty())
+    throw error(exit_code::usage, "--factors needs no factorization and so no --checkpoint");
+  if ((o.checkpoint_every > 0 || o.stop_after > 0) && o.checkpoint_dir.empty())
+    throw error(exit_code::usage, "--checkpoint-every and --stop-after need --checkpoint DIR");
+  // Signals count from the start: one during the reading stops at the first step.
+  std::optional<stop_signals> signals;
+  if (!o.checkpoint_dir.empty()) signals.emplace();
+  return solve_inputs(grid, o, open_inputs(grid, o), std::nullopt);
+}
 
-  const io::file input(grid, o.input, io::file::mode::read);
-  std::optional<io::file> other;
-  if (!o.rhs_file.empty()) other.emplace(grid, o.rhs_file, io::file::mode::read);
-  const io::file& rhs = other ? *other : input;
-
-  const auto a_shape = input.shape(o.matrix_dataset);
-  const std::string a_name = o.matrix_dataset + " in " + o.input;
-  if (a_shape.dims.size() != 2)
-    throw error(exit_code::input, a_name + " has " + std::to_string(a_shape.dims.size()) +
-                                      " dimensions; the matrix must be 2-D");
-  if (a_shape.dims[0] != a_shape.dims[1])
-    throw error(exit_code::input, a_name + " is " + std::to_string(a_shape.dims[0]) + " x " +
-                                      std::to_string(a_shape.dims[1]) + "; the matrix must be square");
-  if (a_shape.dims[0] < 1) throw error(exit_code::input, a_name + " is empty");
-  require_numbers(a_shape, o.matrix_dataset, o.input);
-  const index_t n = a_shape.dims[0];
-
-  const auto b_shape = rhs.shape(o.rhs_dataset);
-  const std::string b_name = o.rhs_dataset + " in " + rhs.path();
-  require_numbers(b_shape, o.rhs_dataset, rhs.path());
-  if (b_shape.dims.empty() || b_shape.dims.size() > 2 || b_shape.dims[0] != n)
-    throw error(exit_code::input, b_name + " must have " + std::to_string(n) +
-                                      " rows (A is " + std::to_string(n) + " x " +
-                                      std::to_string(n) + ") and one or two dimensions");
-  if (b_shape.dims.size() == 2 && b_shape.dims[1] < 1)
-    throw error(exit_code::input, b_name + " has no columns");
-  if (b_shape.is_complex && !a_shape.is_complex)
-    throw error(exit_code::input, b_name + " is complex but A is real");
-
-  solve_result result;
-  dispatch_scalar(a_shape.type, [&]<class T>(T) {
-    result = solve_typed<T>(grid, o, input, rhs, n, b_shape, out,
-                            factors_out ? &*factors_out : nullptr);
-  });
-  return result;
+solve_result resume_dir(const process_grid& grid, const resume_options& ro) {
+  if (ro.block < 0) throw error(exit_code::usage, "the block size must be at least 1");
+  if (const auto output = checkpoint::completed(ro.dir)) {
+    solve_result r;
+    r.already_complete = true;
+    r.output = *output;
+    return r;
+  }
+  const stop_signals signals;
+  const auto h = checkpoint::load_header(grid, ro.dir);
+  const auto& w = h.what;
+  solve_options o;
+  o.input = w.input;
+  o.output = ro.output.empty() ? w.output : ro.output;
+  o.matrix_dataset = w.matrix_dataset;
+  o.rhs_dataset = w.rhs_dataset;
+  o.rhs_file = w.rhs_file;
+  o.column_major = w.column_major;
+  o.save_factors = w.save_factors;
+  o.block = ro.block > 0 ? ro.block : default_block;
+  o.force = ro.force;
+  o.progress = ro.progress;
+  o.checkpoint_dir = ro.dir;
+  o.checkpoint_every = ro.checkpoint_every;
+  o.stop_after = ro.stop_after;
+  o.started = ro.started;
+  const inputs in = open_inputs(grid, o);
+  if (in.n != w.n || in.a_shape.type != w.type)
+    throw error(exit_code::input, o.matrix_dataset + " in " + o.input +
+                                      " is no longer the matrix of the checkpoint in " + ro.dir);
+  return solve_inputs(grid, o, in, h);
 }
 
 void generate_file(const process_grid& grid, const generate_options& o) {
@@ -267,16 +407,15 @@ void generate_file(const process_grid& grid, const generate_options& o) {
     io::file f(grid, out.temporary(), io::file::mode::create);
     f.write("A", a);
     f.write("B", b);
-    const std::pair<const char*, io::attribute> attrs[] = {
-        {"gridlu_kind", std::string("system")},
-        {"gridlu_format", format_version},
-        {"gridlu_version", std::string(version)},
-        {"generator", std::string("random")},
-        {"seed", static_cast<std::int64_t>(o.seed)},
-        {"n", std::int64_t{o.n}},
-        {"nrhs", std::int64_t{o.nrhs}},
-        {"type", o.type}};
-    for (const auto& [key, value] : attrs) f.set_attribute("/", key, value);
+    set_all<io::attribute>(f, "/",
+                           {{"gridlu_kind", std::string("system")},
+                            {"gridlu_format", format_version},
+                            {"gridlu_version", std::string(version)},
+                            {"generator", std::string("random")},
+                            {"seed", static_cast<std::int64_t>(o.seed)},
+                            {"n", std::int64_t{o.n}},
+                            {"nrhs", std::int64_t{o.nrhs}},
+                            {"type", o.type}});
     f.close();
     out.commit();
   });

@@ -80,6 +80,10 @@ struct solve_options {
   bool force = false;
   std::string save_factors, factors;  // paths, or empty
   progress_callback progress;
+  // Checkpointing: a directory (empty: none), the period and the time budget of this
+  // run in seconds (0: none), and when the run started (comm::wtime()).
+  std::string checkpoint_dir;
+  double checkpoint_every = 0, stop_after = 0, started = 0;
 };
 
 struct solve_result {
@@ -91,12 +95,31 @@ struct solve_result {
   double gflops = 0;
   std::vector<double> backward_errors;
   double threshold = 0;  // accepted backward error for the type: 10 n eps
+  // Checkpointing: stopped early (by a signal or the time budget) with a checkpoint.
+  bool stopped = false;
+  bool already_complete = false;  // resume of a finished solve: nothing was done
+  std::string input, output;  // where A came from, where X is (or will be) written
+  index_t columns_done = 0;
+  double factor_seconds_total = 0;  // over all runs of a checkpointed solve
+  std::int64_t restarts = 0, checkpoints = 0;
 };
 
 // Reads A and B from HDF5, factors (or loads saved factors), solves, checks the backward
 // error against A re-read from its file, writes X. Throws gridlu::error, agreed by all
 // ranks; no output file is left behind on failure.
 solve_result solve_file(const process_grid& grid, const solve_options& options);
+
+struct resume_options {
+  std::string dir;
+  index_t block = 0;  // 0: the default block size
+  std::string output;  // empty: the one recorded in the checkpoint
+  bool force = false;
+  double checkpoint_every = 0, stop_after = 0, started = 0;
+  progress_callback progress;
+};
+
+// Continues the checkpointed solve in options.dir on this grid, possibly another one.
+solve_result resume_dir(const process_grid& grid, const resume_options& options);
 
 struct generate_options {
   index_t n = 0, nrhs = 1;
