@@ -10,8 +10,10 @@
 #include <unistd.h>
 
 #include <filesystem>
+#include <map>
 #include <memory>
 
+#include "gridlu/checkpoint.hpp"
 #include "gridlu/io.hpp"
 #include "gridlu/kernels.hpp"
 #include "gridlu/version.hpp"
@@ -296,11 +298,42 @@ std::string dims_text(const std::vector<index_t>& dims) {
   return t;
 }
 
+// Progress of a checkpointed solve, from its directory.
+void checkpoint_summary(const std::string& dir) {
+  const auto state = checkpoint::state_file(dir);
+  if (!std::filesystem::exists(state)) throw error(exit_code::input, "no checkpoint in " + dir);
+  std::map<std::string, std::string> a;
+  for (const auto& [k, v] : io::describe(state).attributes) a[k] = v;
+  if (a["gridlu_kind"] != "checkpoint") throw error(exit_code::input, state + " is not a gridlu checkpoint");
+  const auto number = [&](const std::string& key) {
+    try {
+      return std::stod(a.at(key));
+    } catch (const std::exception&) {
+      throw error(exit_code::input, state + " is damaged: no valid " + key);
+    }
+  };
+  const double n = number("n"), k = number("columns_done");
+  const double percent = 100.0 * (1.0 - lu_flops<double>(n - k) / lu_flops<double>(n));
+  std::printf("checkpoint %s\n", dir.c_str());
+  std::printf("solve      %s -> %s (%s, n = %s)\n", a["input"].c_str(), a["output"].c_str(),
+              a["type"].c_str(), a["n"].c_str());
+  std::printf("progress   %s of %s columns eliminated, %.1f %% of the flops\n", a["columns_done"].c_str(),
+              a["n"].c_str(), percent);
+  std::printf("time       %s s of factorization over all runs\n", a["elapsed_seconds"].c_str());
+  std::printf("restarts   %s\ncheckpoints %s written\n", a["restarts"].c_str(), a["checkpoints"].c_str());
+  const auto done = checkpoint::completed(dir);
+  std::printf("status     %s\n", done ? ("complete, X in " + *done).c_str() : "in progress");
+}
+
 int run_info(const std::string& path) {
   // Rank 0 reads the file alone; the others only learn the outcome.
   int rank = 0;
   MPI_Comm_rank(MPI_COMM_WORLD, &rank);
   if (rank != 0) return 0;
+  if (std::filesystem::is_directory(path)) {
+    checkpoint_summary(path);
+    return 0;
+  }
   const auto d = io::describe(path);
   std::error_code ec;
   const auto bytes = std::filesystem::file_size(path, ec);
@@ -444,8 +477,8 @@ int main(int argc, char** argv) {
 
   std::string info_path;
   auto* info_cmd = app.add_subcommand("info", "show what an HDF5 file holds");
-  info_cmd->add_option("file", info_path, "any HDF5 file")->required();
-  info_cmd->footer("Example:\n  gridlu info charges.h5");
+  info_cmd->add_option("file", info_path, "any HDF5 file, or a checkpoint directory")->required();
+  info_cmd->footer("Examples:\n  gridlu info charges.h5\n  gridlu info ckpt");
 
   try {
     app.parse(argc, argv);

@@ -258,13 +258,18 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
         throw error(exit_code::input, o.rhs_dataset + " in " + in.rhs().path() +
                                           " changed since the checkpoint was made; it cannot be resumed");
       ++ck.done.restarts;
-      ck.what.output = o.output;
+      ck.what.output = std::filesystem::absolute(o.output).string();
       r.factor_seconds_total = ck.done.elapsed_seconds;
     } else {
       const auto rhs_identity = io::identify(in.rhs().path());
-      ck.what = {o.input, o.output, o.matrix_dataset, o.rhs_dataset, o.rhs_file, o.save_factors,
-                 o.column_major, r.type, n, r.nrhs, source.size, rhs_identity.size, source.mtime,
-                 rhs_identity.mtime, content_checksum(a), b_sum};
+      // Absolute paths: the next allocation may start in another directory.
+      const auto absolute = [](const std::string& p) {
+        return p.empty() ? p : std::filesystem::absolute(p).string();
+      };
+      ck.what = {absolute(o.input), absolute(o.output), o.matrix_dataset, o.rhs_dataset,
+                 absolute(o.rhs_file), absolute(o.save_factors), o.column_major, r.type, n, r.nrhs,
+                 source.size, rhs_identity.size, source.mtime, rhs_identity.mtime,
+                 content_checksum(a), b_sum};
     }
     r.restarts = ck.done.restarts;
     if (!factor_checkpointed(grid, o, a, lu, ck, r)) {
