@@ -111,6 +111,44 @@ TYPED_TEST(Lu, PivotsAndFactorsMatchLapackAndSolvesAreBackwardStable) {
   }
 }
 
+// A factorization stopped part-way, moved in its global layout to another grid shape and
+// block size (as a checkpoint is), and continued there, must end with LAPACK's pivots and
+// factors: the state after k columns does not depend on how it was computed.
+TYPED_TEST(Lu, StoppedAndContinuedOnAnotherGridAndBlockSizeMatchesLapack) {
+  using T = TypeParam;
+  const auto shapes = shapes_for_world();
+  for (std::size_t s = 0; s < shapes.size(); ++s) {
+    const process_grid first(MPI_COMM_WORLD, shapes[s]);
+    const process_grid second(MPI_COMM_WORLD, shapes[(s + 1) % shapes.size()]);
+    for (const index_t n : {100, 257})
+      for (const auto& [nb1, nb2] : {std::pair<index_t, index_t>{16, 5}, {3, 64}, {64, 16}}) {
+        SCOPED_TRACE(::testing::Message() << "n=" << n << " nb " << nb1 << " -> " << nb2);
+        const auto entry = [&](index_t i, index_t j) { return random_entry<T>(77 + n, i, j); };
+        dist_matrix<T> a(first, n, n, nb1);
+        a.fill(entry);
+        const auto original = a.gather();
+        lu_options stop_early;
+        stop_early.after_step = [&](const lu_result& st) { return st.columns_done >= n / 3; };
+        auto state = factor(a, stop_early);
+        EXPECT_LT(state.columns_done, n);
+        dist_matrix<T> b(second, n, n, nb2);
+        b.scatter(a.gather());
+        const auto lu = factor(b, std::move(state));
+        const auto ours = b.gather();
+        if (!is_root()) continue;
+        const auto ref = lapack_lu(original, n);
+        std::vector<index_t> lapack_pivots(ref.ipiv.begin(), ref.ipiv.end());
+        for (auto& p : lapack_pivots) --p;
+        EXPECT_EQ(lu.pivots, lapack_pivots);
+        EXPECT_EQ(lu.columns_done, n);
+        double diff = 0;
+        for (std::size_t e = 0; e < ours.size(); ++e)
+          diff = std::max(diff, static_cast<double>(std::abs(ours[e] - ref.factors[e])));
+        EXPECT_LE(diff, n * epsilon<T>() * max_row_sum(original, n, n));
+      }
+  }
+}
+
 // Root-only checks use EXPECT, never ASSERT: an ASSERT would leave the test on one rank
 // while the others go on into the next collective and wait forever.
 

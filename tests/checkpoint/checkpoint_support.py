@@ -1,0 +1,385 @@
+"""Pieces shared by the checkpoint tests: a system with a known condition number, gridlu jobs in
+the background that can be signalled or killed at chosen moments, a watch on a checkpoint
+directory, and checks of checkpoints and solutions against h5py and numpy.
+
+The command-line harness (tests/cli/harness.py) provides the suite, the cases and the
+synchronous runs; this module adds what only checkpointing needs.
+"""
+
+import json
+import os
+import re
+import shlex
+import signal
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "cli"))
+import harness  # noqa: E402
+from harness import Run, conditioned_matrix, eps, random_matrix, read_h5, rel_diff  # noqa: E402
+
+# Large enough that a run on 2 ranks lasts a second or two and a checkpoint write (72 MB)
+# can be caught in progress, small enough to keep the suite within a few minutes.
+N = 3000
+BLOCK = 32
+COND = 10.0
+# Minutes between periodic checkpoints (0.18 s): several per run.
+EVERY = "0.003"
+RANKS = 2
+STOPPED, NO_DATA = 5, 3
+PARTIAL_PREFIX = ".checkpoint.h5.partial-"
+# Polling period of the directory watch and of job waits.
+POLL = 0.001
+# Runs on the same grid and block size, interrupted or not, do the same arithmetic: their X
+# may differ only by the rounding of operations that are reordered, far below this.
+SAME_RUN_TOL = 1e-12
+
+
+def solution_tol():
+    """harness.rel_tol for a matrix whose condition number is COND by construction: computing
+    it with np.linalg.cond would cost more than the test itself."""
+    return min(100 * N * eps(np.float64) * COND, 1e-3)
+
+
+def text(value):
+    """An HDF5 string attribute as str, whether h5py gives it as str or bytes."""
+    if isinstance(value, np.ndarray) and value.size == 1:
+        value = value.item()
+    return value.decode() if isinstance(value, (bytes, np.bytes_)) else str(value)
+
+
+class System:
+    """A float64 system A X = B in an input file, with numpy's solution and, once
+    `solve_uninterrupted` has run, an uninterrupted gridlu run's X and pivots."""
+
+    def __init__(self, suite, seed, name="system.h5"):
+        rng = np.random.default_rng(seed)
+        self.suite = suite
+        self.path = suite.root / name
+        self.a = conditioned_matrix(rng, N, np.float64, COND)
+        self.b = random_matrix(rng, (N, 2), np.float64)
+        harness.write_h5(self.path, {"A": self.a, "B": self.b})
+        # reference: numpy.linalg.solve
+        self.x_numpy = np.linalg.solve(self.a, self.b)
+        self.x_ref = self.pivots_ref = None
+        self.seconds = None
+
+    def solve_args(self, out, *options):
+        return ["solve", self.path, "--out", out, "--block", BLOCK, *options]
+
+    def solve_uninterrupted(self, c):
+        """Solve without checkpoints on RANKS ranks, keeping the factors for their pivots."""
+        out, factors = c.dir / "x.h5", c.dir / "factors.h5"
+        job = Job(self.suite, self.solve_args(out, "--save-factors", factors), RANKS)
+        run = job.wait()
+        c.succeeded(run)
+        self.seconds = job.seconds
+        x = read_h5(out, "X")
+        err = rel_diff(x, self.x_numpy)
+        # reference: numpy.linalg.solve
+        c.require(err <= solution_tol(),
+                  f"||X - X_numpy||_F / ||X_numpy||_F = {err:.2e} > {solution_tol():.2e}")
+        self.x_ref, self.pivots_ref = x, read_h5(factors, "pivots")
+
+    def check_solved(self, c, directory, out, same_run=True):
+        """After a resume that exited 0: X in `out` is the solution and the directory records
+        a finished solve whose pivots are those of the uninterrupted run; returns the final
+        checkpoint's summary."""
+        c.require(out.exists(), f"no X at {out}")
+        x = read_h5(out, "X")
+        err = rel_diff(x, self.x_numpy)
+        # reference: numpy.linalg.solve
+        c.check(err <= solution_tol(),
+                f"||X - X_numpy||_F / ||X_numpy||_F = {err:.2e} > {solution_tol():.2e}")
+        # reference: the uninterrupted run; on another grid or block size the rounding differs,
+        # and both answers are only within the accuracy of a solve of each other.
+        tol = SAME_RUN_TOL if same_run else 2 * solution_tol()
+        err = rel_diff(x, self.x_ref)
+        c.check(err <= tol, f"||X - X_uninterrupted||_F / ||X_uninterrupted||_F = {err:.2e} > "
+                            f"{tol:.0e}")
+        done = directory / "complete.json"
+        if c.check(done.exists(), "no complete.json after the solve finished"):
+            c.check(isinstance(json.loads(done.read_text()), dict),
+                    "complete.json does not hold a JSON object")
+        cp = sound_checkpoint(c, directory, self.a)
+        c.require(cp["k"] == N, f"final checkpoint has {cp['k']} of {N} columns done")
+        # reference: the pivots of the uninterrupted run (partial pivoting chooses by value,
+        # and the gaps between candidates in a random matrix dwarf rounding differences)
+        diff = np.flatnonzero(cp["pivots"] != self.pivots_ref)
+        c.check(diff.size == 0, f"pivots differ from the uninterrupted run's at {diff.size} steps,"
+                                f" the first at step {diff[:1]}")
+        return cp
+
+
+class Job:
+    """gridlu under mpiexec in the background, in a session of its own so that its ranks can
+    be found, signalled and killed by id."""
+
+    def __init__(self, suite, args, ranks):
+        self.ranks = ranks
+        self.argv = [suite.mpiexec, "-q", "-n", str(ranks), "--oversubscribe", suite.gridlu,
+                     *map(str, args)]
+        self._exe = os.path.realpath(suite.gridlu)
+        # Files, not pipes: nobody reads while the job runs.
+        self._out, self._err = tempfile.TemporaryFile("w+"), tempfile.TemporaryFile("w+")
+        self.started = time.monotonic()
+        self.seconds = None
+        self.proc = subprocess.Popen(self.argv, stdout=self._out, stderr=self._err, text=True,
+                                     start_new_session=True, cwd=suite.root)
+
+    def elapsed(self):
+        return time.monotonic() - self.started
+
+    def running(self):
+        return self.proc.poll() is None
+
+    def _session(self):
+        """(pid, process group, executable) of the live processes in the job's session."""
+        found = []
+        for entry in os.scandir("/proc"):
+            if not entry.name.isdigit():
+                continue
+            try:
+                stat = Path(entry.path, "stat").read_text()
+                # After the command name: state, ppid, process group, session, ...
+                fields = stat[stat.rindex(")") + 2:].split()
+                if int(fields[3]) != self.proc.pid:
+                    continue
+                exe = os.readlink(os.path.join(entry.path, "exe"))  # fails for zombies
+            except (OSError, ValueError):
+                continue
+            found.append((int(entry.name), int(fields[2]), exe))
+        return found
+
+    def rank_pids(self, timeout=30):
+        """The pids of the gridlu ranks, waiting until all have started."""
+        deadline = time.monotonic() + timeout
+        while True:
+            pids = [pid for pid, _, exe in self._session() if exe == self._exe]
+            if len(pids) >= self.ranks or not self.running() or time.monotonic() > deadline:
+                return pids
+            time.sleep(POLL)
+
+    def signal_ranks(self, sig):
+        """`sig` to every rank, as a batch system signals all processes of a job. (mpiexec
+        would turn SIGTERM and SIGINT into a kill of the job, and exit 1 itself.)"""
+        for pid in self.rank_pids():
+            try:
+                os.kill(pid, sig)
+            except ProcessLookupError:
+                pass
+
+    def kill(self):
+        """SIGKILL to every process group of the session, as on a node failure. Open MPI
+        gives each rank a process group of its own, apart from mpiexec's."""
+        while True:
+            groups = {pgid for _, pgid, _ in self._session()}
+            if not groups:
+                break
+            for pgid in groups:
+                try:
+                    os.killpg(pgid, signal.SIGKILL)
+                except ProcessLookupError:
+                    pass
+            time.sleep(POLL)
+
+    def wait(self, timeout=harness.TIMEOUT_SECONDS):
+        """The Run once the job has ended; one still running `timeout` seconds after its start
+        is killed and counts as hung."""
+        hung = False
+        try:
+            self.proc.wait(timeout=max(0.0, self.started + timeout - time.monotonic()))
+        except subprocess.TimeoutExpired:
+            hung = True
+        self.kill()  # also any rank outliving mpiexec
+        self.proc.wait()
+        if self.seconds is None:
+            self.seconds = self.elapsed()
+        self._out.seek(0)
+        self._err.seek(0)
+        return Run(self.argv, self.proc.returncode, self._out.read(), self._err.read(), hung)
+
+
+def partials(directory):
+    try:
+        return [e.name for e in os.scandir(directory) if e.name.startswith(PARTIAL_PREFIX)]
+    except FileNotFoundError:
+        return []
+
+
+def committed(directory):
+    """The identity of the current checkpoint.h5, or None: every commit renames a new file
+    over it, so inode and modification time change."""
+    try:
+        st = os.stat(directory / "checkpoint.h5")
+    except FileNotFoundError:
+        return None
+    return st.st_ino, st.st_mtime_ns
+
+
+class Watch:
+    """Follows a checkpoint directory by polling: when checkpoint writes began (a temporary
+    file appeared) and ended, and when checkpoint.h5 was replaced. Times are
+    time.monotonic(); only changes after the watch was made (at `origin`) count."""
+
+    def __init__(self, directory):
+        self.dir = directory
+        self.origin = time.monotonic()
+        self.starts, self.ends, self.commits = [], [], []
+        self._writing = bool(partials(directory))
+        self._current = committed(directory)
+
+    def poll(self):
+        now = time.monotonic()
+        writing = bool(partials(self.dir))
+        if writing and not self._writing:
+            self.starts.append(now)
+        if self._writing and not writing and self.starts:
+            self.ends.append(now)
+        self._writing = writing
+        current = committed(self.dir)
+        if current is not None and current != self._current:
+            self.commits.append(now)
+        self._current = current
+        return now
+
+    def writing(self):
+        return self._writing
+
+    def until(self, job, moment, timeout=60):
+        """Poll until moment(watch, now) holds (True) or the job ends or time runs out (False)."""
+        deadline = time.monotonic() + timeout
+        while job.running() and time.monotonic() < deadline:
+            if moment(self, self.poll()):
+                return True
+            time.sleep(POLL)
+        return False
+
+    def follow(self, job):
+        """Poll until the job ends."""
+        while job.running():
+            self.poll()
+            time.sleep(POLL)
+        self.poll()
+
+
+def after_commits(count):
+    return lambda w, now: len(w.commits) >= count
+
+
+def interrupt(suite, c, args, ranks, directory, sig=signal.SIGTERM, commits=1):
+    """Start gridlu ARGS, send `sig` to its ranks once `commits` checkpoints have been
+    committed, and require that it stopped with a checkpoint (exit 5)."""
+    job = Job(suite, args, ranks)
+    watch = Watch(directory)
+    reached = watch.until(job, after_commits(commits))
+    job.signal_ranks(sig)
+    run = job.wait()
+    c.require(reached, f"the run ended before {commits} checkpoint(s): {run.describe()}")
+    c.require(not run.hung and run.code == STOPPED, f"expected exit 5: {run.describe()}")
+    return run
+
+
+def inspect_checkpoint(path, a):
+    """(problems, {"k", "pivots", "restarts", "elapsed"}) of the checkpoint at `path` for the
+    system matrix `a`: h5py must open it, its attributes must agree with each other and with
+    its datasets, and its datasets must hold a partial LU factorization of `a`."""
+    try:
+        with h5py.File(path, "r") as f:
+            attrs = {name: f.attrs[name] for name in f.attrs}
+            work = f["work"][()] if "work" in f else None
+            pivots = f["pivots"][()] if "pivots" in f else None
+    except (OSError, KeyError, ValueError) as e:
+        return [f"h5py cannot read {path}: {e}"], None
+    problems = []
+    missing = {"gridlu_kind", "columns_done", "n", "type", "restarts", "elapsed_seconds",
+               "work_checksum", "pivots_checksum"} - attrs.keys()
+    if missing or work is None or pivots is None:
+        return [f"missing attributes {sorted(missing)} or datasets (work: {work is not None},"
+                f" pivots: {pivots is not None})"], None
+    n, k = int(attrs["n"]), int(attrs["columns_done"])
+    info = {"k": k, "pivots": pivots, "restarts": int(attrs["restarts"]),
+            "elapsed": float(attrs["elapsed_seconds"])}
+    for ok, what in [(text(attrs["gridlu_kind"]) == "checkpoint",
+                      f"gridlu_kind = {attrs['gridlu_kind']!r}"),
+                     (text(attrs["type"]) == a.dtype.name, f"type = {attrs['type']!r}"),
+                     (n == a.shape[0], f"n = {n}, A is {a.shape[0]} x {a.shape[0]}"),
+                     (work.shape == a.shape and work.dtype == a.dtype,
+                      f"work is {work.shape} {work.dtype}"),
+                     (0 <= k <= n, f"columns_done = {k}"),
+                     (pivots.shape == (k,) and pivots.dtype == np.int64,
+                      f"pivots is {pivots.shape} {pivots.dtype} for columns_done = {k}"),
+                     (info["restarts"] >= 0, f"restarts = {info['restarts']}"),
+                     (info["elapsed"] >= 0, f"elapsed_seconds = {info['elapsed']}")]:
+        if not ok:
+            problems.append(what)
+    if problems:
+        return problems, info
+    # Step i swaps row i with a row at or below it.
+    bad = np.flatnonzero((pivots < np.arange(k)) | (pivots >= n))
+    if bad.size:
+        return [f"pivots[{bad[0]}] = {pivots[bad[0]]} outside [{bad[0]}, {n})"], info
+    problems += partial_lu_problems(a, work, pivots)
+    return problems, info
+
+
+def columns_done(directory):
+    """columns_done of the current checkpoint, 0 if it cannot be read."""
+    try:
+        with h5py.File(directory / "checkpoint.h5", "r") as f:
+            return int(f.attrs["columns_done"])
+    except (OSError, KeyError, ValueError):
+        return 0
+
+
+def sound_checkpoint(c, directory, a):
+    """Require that `directory` holds a checkpoint passing inspect_checkpoint; its summary."""
+    problems, info = inspect_checkpoint(directory / "checkpoint.h5", a)
+    c.require(not problems, f"{directory / 'checkpoint.h5'}: " + "; ".join(problems))
+    return info
+
+
+def partial_lu_problems(a, work, pivots):
+    """Hold `work` after k = len(pivots) eliminated columns to the definition of a partial LU
+    factorization with row interchanges (LAPACK's getrf layout), evaluated with numpy:
+    P A = [L11 0; L21 I] [U11 U12; 0 S] with L unit lower triangular in work's first k
+    columns, U in its first k rows and the trailing matrix S below and right of them.
+    Checked on a sample of rows, within the backward error bound of LU, |P A - L U| <=
+    gamma |L| |U| (Higham), with room; partial pivoting also bounds |L| by 1."""
+    n, k = a.shape[0], len(pivots)
+    perm = np.arange(n)
+    for i, p in enumerate(pivots):
+        perm[[i, p]] = perm[[p, i]]
+    u = np.triu(work[:k])
+    rows = sorted(set(np.linspace(0, n - 1, 16).astype(int)) | {max(k - 1, 0), min(k, n - 1)})
+    problems = []
+    for r in rows:
+        ell = np.append(work[r, :r], 1.0) if r < k else work[r, :k]
+        top = u[:r + 1] if r < k else u
+        product, scale = ell @ top, np.abs(ell) @ np.abs(top)
+        if r >= k:
+            product[k:] += work[r, k:]
+            scale[k:] += np.abs(work[r, k:])
+        residual = np.abs(a[perm[r]] - product).max()
+        bound = 10 * n * eps(a.dtype) * scale.max()
+        if not residual <= bound:
+            problems.append(f"row {r} of P A - L U is {residual:.2e} > {bound:.2e}")
+        multipliers = np.abs(work[r, :min(r, k)])
+        if multipliers.size and not multipliers.max() <= 1:
+            problems.append(f"row {r} of L has an entry {multipliers.max():.3g} > 1")
+    return problems
+
+
+def printed_resume(run):
+    """The arguments after `gridlu resume` in the command gridlu printed, or None."""
+    for line in (run.stdout + "\n" + run.stderr).splitlines():
+        m = re.search(r"gridlu resume (.*)$", line)
+        if m:
+            return shlex.split(m.group(1))
+    return None

@@ -1,0 +1,130 @@
+"""gridlu solve with periodic checkpoints, killed with SIGKILL (mpiexec and every rank at once)
+at chosen moments, then resumed: whatever the moment, the directory holds either no checkpoint,
+and resume says so, or a sound one, from which resume reaches the uninterrupted run's X and
+pivots. Then solves stopped by SIGTERM and resumed on other rank counts, grids and block
+sizes."""
+
+import re
+import sys
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from checkpoint_support import (EVERY, NO_DATA, RANKS, Job, System, Watch, committed,  # noqa: E402
+                                harness, inspect_checkpoint, interrupt, sound_checkpoint)
+
+suite = harness.Suite(__doc__)
+system = System(suite, seed=5101)
+
+with suite.case("uninterrupted solve: X matches numpy") as c:
+    system.solve_uninterrupted(c)
+
+
+def checkpointed_solve(out, directory, *options):
+    return system.solve_args(out, "--checkpoint", directory, "--checkpoint-every", EVERY,
+                             *options)
+
+
+timing = {}
+with suite.case("solve with a checkpoint every 0.18 s, uninterrupted: X and pivots") as c:
+    ckpt, out = c.dir / "ckpt", c.dir / "x.h5"
+    job = Job(suite, checkpointed_solve(out, ckpt), RANKS)
+    watch = Watch(ckpt)
+    watch.follow(job)
+    c.succeeded(job.wait())
+    system.check_solved(c, ckpt, out)
+    durations = [end - start for start, end in zip(watch.starts, watch.ends)]
+    # The kill moments below fall in the first three checkpoint writes.
+    c.require(len(durations) >= 3, f"{len(durations)} checkpoint writes seen, expected >= 3")
+    timing.update(run=job.seconds, write=float(np.median(durations)))
+
+
+def at(seconds):
+    return lambda w, now: now - w.origin >= seconds
+
+
+def writing(i, fraction=0.0):
+    """`fraction` of a typical write's duration into the i-th checkpoint write."""
+    return lambda w, now: len(w.starts) >= i and now - w.starts[i - 1] >= fraction * timing["write"]
+
+
+def after_commit(i, delay=0.0):
+    return lambda w, now: len(w.commits) >= i and now - w.commits[i - 1] >= delay
+
+
+MOMENTS = [
+    ("0.05 s after launch", at(0.05)),
+    ("as the first checkpoint write begins", writing(1)),
+    ("halfway through the first checkpoint write", writing(1, 0.5)),
+    ("just after the first checkpoint is committed", after_commit(1)),
+    ("between the first and second checkpoints", after_commit(1, 0.1)),
+    ("as the second checkpoint write begins", writing(2)),
+    ("halfway through the second checkpoint write", writing(2, 0.5)),
+    ("at the end of the second checkpoint write (flush, verify, rename)", writing(2, 0.9)),
+    ("just after the second checkpoint is committed", after_commit(2)),
+    ("a third of the way through the third checkpoint write", writing(3, 0.33)),
+] + [(f"at {share:.0%} of an uninterrupted run's time", lambda w, now, s=share:
+      now - w.origin >= s * timing["run"]) for share in (0.35, 0.55, 0.75, 0.9)]
+
+outcomes = {"checkpoint": 0, "none": 0}
+for description, moment in MOMENTS:
+    with suite.case(f"SIGKILL {description}, then resume") as c:
+        c.require(timing, "no timings from the uninterrupted checkpointed solve")
+        ckpt, out = c.dir / "ckpt", c.dir / "x.h5"
+        job = Job(suite, checkpointed_solve(out, ckpt), RANKS)
+        reached = Watch(ckpt).until(job, moment)
+        job.kill()
+        run = job.wait()
+        c.require(reached, f"the run ended before the moment: {run.describe()}")
+        if committed(ckpt) is None:
+            outcomes["none"] += 1
+            # Nothing to resume from, whatever temporary file the kill left behind.
+            c.failed_with(suite.run("resume", ckpt, ranks=RANKS), NO_DATA)
+            c.check(not out.exists(), f"resume without a checkpoint wrote {out}")
+            continue
+        outcomes["checkpoint"] += 1
+        problems, _ = inspect_checkpoint(ckpt / "checkpoint.h5", system.a)
+        c.check(not problems, "checkpoint left by the kill: " + "; ".join(problems))
+        c.succeeded(suite.run("resume", ckpt, ranks=RANKS))
+        system.check_solved(c, ckpt, out)
+
+with suite.case(f"at least 10 of {len(MOMENTS)} kills left a checkpoint to resume from") as c:
+    c.check(outcomes["checkpoint"] >= 10, f"kills leaving a checkpoint or none: {outcomes}")
+
+
+def summary_shows(c, run, grid, block=None):
+    """The resumed run's summary reports the grid (and block size) it was given."""
+    c.check(re.search(rf"\b{grid}\b", run.stdout), f"summary does not show grid {grid}:\n"
+                                                    f"{run.stdout}")
+    if block is not None:
+        c.check(re.search(rf"\bblock {block}\b", run.stdout),
+                f"summary does not show block {block}:\n{run.stdout}")
+
+
+with suite.case("1 rank, SIGTERM -> 2 ranks, SIGTERM -> 4 ranks: X and pivots") as c:
+    ckpt, out = c.dir / "ckpt", c.dir / "x.h5"
+    interrupt(suite, c, checkpointed_solve(out, ckpt), 1, ckpt)
+    first = sound_checkpoint(c, ckpt, system.a)
+    interrupt(suite, c, ["resume", ckpt, "--checkpoint-every", EVERY], 2, ckpt)
+    second = sound_checkpoint(c, ckpt, system.a)
+    c.check(second["k"] >= first["k"], f"columns done went from {first['k']} to {second['k']}")
+    c.check(second["restarts"] == first["restarts"] + 1,
+            f"restarts {first['restarts']} -> {second['restarts']} after one resume")
+    run = suite.run("resume", ckpt, ranks=4)
+    c.succeeded(run)
+    summary_shows(c, run, "2x2")
+    final = system.check_solved(c, ckpt, out, same_run=False)
+    c.check(final["restarts"] == first["restarts"] + 2,
+            f"restarts {first['restarts']} -> {final['restarts']} after two resumes")
+
+with suite.case("grid 2x2, block 32, SIGTERM -> grid 1x3, block 48: X and pivots") as c:
+    ckpt, out = c.dir / "ckpt", c.dir / "x.h5"
+    interrupt(suite, c, checkpointed_solve(out, ckpt, "--grid", "2x2"), 4, ckpt)
+    sound_checkpoint(c, ckpt, system.a)
+    run = suite.run("resume", ckpt, "--grid", "1x3", "--block", 48, ranks=3)
+    c.succeeded(run)
+    summary_shows(c, run, "1x3", 48)
+    system.check_solved(c, ckpt, out, same_run=False)
+
+suite.finish()
