@@ -1,0 +1,61 @@
+#!/usr/bin/python3
+"""The factorization benchmark: gridlu against the GEMM bound of the same cores and
+against OpenBLAS's own threaded LU, alternating the runs so that drifts of the machine hit
+all alike; prints medians and ratios.
+
+    /usr/bin/python3 tools/bench_lu.py [--sizes 4096 8192] [--rounds 3] [--build build]
+"""
+import argparse
+import json
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+
+
+def run_json(cmd, report=None):
+    out = subprocess.run(cmd, check=True, capture_output=True, text=True).stdout
+    if report is None:
+        return json.loads(out.strip().splitlines()[-1])
+    with open(report) as f:
+        return json.load(f)
+
+
+def main():
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--sizes", type=int, nargs="+", default=[4096, 8192])
+    p.add_argument("--rounds", type=int, default=3)
+    p.add_argument("--ranks", type=int, default=2)
+    p.add_argument("--block", type=int)
+    p.add_argument("--build", default="build")
+    args = p.parse_args()
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    gridlu = os.path.join(args.build, "gridlu")
+    reference = os.path.join(args.build, "reference_lu")
+    launch = [os.path.join(root, "tools", "launch"), "-n", str(args.ranks)]
+    grids = [f"1x{args.ranks}", f"{args.ranks}x1"]
+    block = ["--block", str(args.block)] if args.block else []
+    with tempfile.TemporaryDirectory() as tmp:
+        report = os.path.join(tmp, "r.json")
+        for n in args.sizes:
+            gemm, lapack, ours = [], [], {g: [] for g in grids}
+            for _ in range(args.rounds):
+                for g in grids:
+                    r = run_json(launch + [gridlu, "bench", "--n", str(n), "--grid", g, *block,
+                                           "--report", report], report)
+                    ours[g].append(r["gflops"])
+                    gemm.append(r["gemm_gflops"])
+                lapack.append(run_json([reference, str(n), str(args.ranks)])["gflops"])
+            bound, ref = statistics.median(gemm), statistics.median(lapack)
+            print(f"n = {n}: GEMM bound {bound:.1f} GFLOP/s, OpenBLAS LU ({args.ranks} threads) "
+                  f"{ref:.1f} GFLOP/s = {ref / bound:.3f} of the bound")
+            for g in grids:
+                m = statistics.median(ours[g])
+                print(f"  gridlu {g}: {m:.1f} GFLOP/s = {m / bound:.3f} of the bound, "
+                      f"{m / ref:.3f} x OpenBLAS LU   (runs: {', '.join(f'{v:.1f}' for v in ours[g])})")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
