@@ -24,7 +24,8 @@ std::vector<double> time_lu(gridlu::index_t n, int repeat) {
       for (gridlu::index_t i = 0; i < n; ++i) a[i + j * n] = gridlu::random_entry<T>(1, i, j);
     const auto start = std::chrono::steady_clock::now();
     gridlu::blas::lapack_getrf<T>(n, n, a.data(), n, ipiv.data());
-    seconds.push_back(std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count());
+    seconds.push_back(
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count());
   }
   return seconds;
 }
@@ -33,7 +34,8 @@ std::vector<double> time_lu(gridlu::index_t n, int repeat) {
 
 int main(int argc, char** argv) {
   if (argc < 3) {
-    std::fprintf(stderr, "usage: reference_lu N THREADS [float64|complex128|float32|complex64] [REPEAT]\n");
+    std::fprintf(stderr,
+                 "usage: reference_lu N THREADS [float64|complex128|float32|complex64] [REPEAT]\n");
     return 2;
   }
   const gridlu::index_t n = std::stoll(argv[1]);

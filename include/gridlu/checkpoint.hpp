@@ -18,6 +18,7 @@ struct job {
   bool column_major = false;
   std::string type;
   index_t n = 0, nrhs = 0;
+  index_t block = 0;  // of the run that wrote the checkpoint: resume's default
   std::int64_t input_size = 0, rhs_size = 0;
   double input_mtime = 0, rhs_mtime = 0;
   std::uint64_t a_checksum = 0, b_checksum = 0;  // content_checksum of A and B

@@ -103,7 +103,7 @@ struct description {
     std::vector<std::pair<std::string, std::string>> attributes;  // key, printable value
   };
   std::vector<std::pair<std::string, std::string>> attributes;  // of the root group
-  std::vector<item> groups;    // every other group (their shapes are empty)
+  std::vector<item> groups;  // every other group (their shapes are empty)
   std::vector<item> datasets;
 };
 description describe(const std::string& path);

@@ -21,7 +21,6 @@ struct lu_result {
   index_t columns_done = 0;
 };
 
-
 struct lu_options {
   // Called on every rank after each block step with the state so far (a holds the
   // matching working matrix); returning true stops the factorization there. Every rank

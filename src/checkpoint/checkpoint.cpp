@@ -57,7 +57,9 @@ std::uint64_t need_hex(const io::file& f, const std::string& key, const std::str
 
 }  // namespace
 
-std::string state_file(const std::string& dir) { return (fs::path(dir) / "checkpoint.h5").string(); }
+std::string state_file(const std::string& dir) {
+  return (fs::path(dir) / "checkpoint.h5").string();
+}
 
 void prepare(const process_grid& grid, const std::string& dir, double bytes) {
   comm::together(grid.all(), [&] {
@@ -65,19 +67,23 @@ void prepare(const process_grid& grid, const std::string& dir, double bytes) {
     std::error_code ec;
     fs::create_directories(dir, ec);
     if (ec || !fs::is_directory(dir))
-      throw error(exit_code::usage, "cannot use " + dir + " as checkpoint directory: " + ec.message());
+      throw error(exit_code::usage,
+                  "cannot use " + dir + " as checkpoint directory: " + ec.message());
     for (const auto& e : fs::directory_iterator(dir))
       if (e.path().filename().string().rfind(partial_prefix, 0) == 0) fs::remove(e.path(), ec);
-    struct statvfs st{};
+    struct statvfs st {};
     if (statvfs(dir.c_str(), &st) != 0)
-      throw error(exit_code::usage, "cannot query free space in " + dir + ": " + std::strerror(errno));
+      throw error(exit_code::usage,
+                  "cannot query free space in " + dir + ": " + std::strerror(errno));
     const double free = static_cast<double>(st.f_bavail) * static_cast<double>(st.f_frsize);
-    const double existing = fs::exists(state_file(dir)) ? static_cast<double>(fs::file_size(state_file(dir))) : 0.0;
+    const double existing =
+        fs::exists(state_file(dir)) ? static_cast<double>(fs::file_size(state_file(dir))) : 0.0;
     if (free + existing < 2.0 * bytes)
       throw error(exit_code::usage,
                   "not enough disk space for checkpoints in " + dir + ": two copies need " +
                       std::to_string(static_cast<long long>(2.0 * bytes / 1e6)) + " MB, " +
-                      std::to_string(static_cast<long long>((free + existing) / 1e6)) + " MB are available");
+                      std::to_string(static_cast<long long>((free + existing) / 1e6)) +
+                      " MB are available");
   });
 }
 
@@ -101,6 +107,7 @@ void save(const process_grid& grid, const std::string& dir, const dist_matrix<T>
         {"type", w.type},
         {"n", std::int64_t{w.n}},
         {"nrhs", std::int64_t{w.nrhs}},
+        {"block", std::int64_t{w.block}},
         {"columns_done", std::int64_t{state.columns_done}},
         {"first_zero_pivot", std::int64_t{state.first_zero_pivot}},
         {"elapsed_seconds", h.done.elapsed_seconds},
@@ -132,7 +139,8 @@ void save(const process_grid& grid, const std::string& dir, const dist_matrix<T>
   {
     const io::file f(grid, temporary, io::file::mode::read);
     if (f.checksum<T>("work") != work_sum)
-      throw error(exit_code::internal, "the checkpoint written to " + temporary + " does not read back");
+      throw error(exit_code::internal,
+                  "the checkpoint written to " + temporary + " does not read back");
   }
   comm::together(grid.all(), [&] {
     if (grid.rank() != 0) return;
@@ -156,6 +164,7 @@ header load_header(const process_grid& grid, const std::string& dir) {
   w.type = need<std::string>(f, "type", path);
   w.n = need<std::int64_t>(f, "n", path);
   w.nrhs = need<std::int64_t>(f, "nrhs", path);
+  w.block = need<std::int64_t>(f, "block", path);
   w.input = need<std::string>(f, "input", path);
   w.output = need<std::string>(f, "output", path);
   w.matrix_dataset = need<std::string>(f, "matrix_dataset", path);
@@ -173,7 +182,7 @@ header load_header(const process_grid& grid, const std::string& dir) {
   h.done.elapsed_seconds = need<double>(f, "elapsed_seconds", path);
   h.done.restarts = need<std::int64_t>(f, "restarts", path);
   h.done.checkpoints = need<std::int64_t>(f, "checkpoints", path);
-  if (w.n < 1 || h.done.columns_done < 0 || h.done.columns_done > w.n)
+  if (w.n < 1 || w.block < 1 || h.done.columns_done < 0 || h.done.columns_done > w.n)
     throw damaged(path + " records an impossible state");
   return h;
 }
@@ -224,9 +233,9 @@ std::optional<std::string> completed(const std::string& dir) {
   }
 }
 
-#define INSTANTIATE(T)                                                                      \
-  template void save<T>(const process_grid&, const std::string&, const dist_matrix<T>&,     \
-                        const lu_result&, const header&);                                   \
+#define INSTANTIATE(T)                                                                  \
+  template void save<T>(const process_grid&, const std::string&, const dist_matrix<T>&, \
+                        const lu_result&, const header&);                               \
   template lu_result load<T>(const process_grid&, const std::string&, dist_matrix<T>&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE

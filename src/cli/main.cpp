@@ -76,7 +76,8 @@ int run_read_bench(const workflows::read_bench_options& o, const common_options&
   std::printf("gridlu bench --read: %s:%s (%.2f GB) into a %dx%d grid, block %lld\n",
               o.path.c_str(), o.dataset.c_str(), r.bytes * 1e-9, grid.prows(), grid.pcols(),
               static_cast<long long>(o.block));
-  for (const double t : r.seconds) std::printf("  read %8.3f s   %6.2f GB/s\n", t, r.bytes / t * 1e-9);
+  for (const double t : r.seconds)
+    std::printf("  read %8.3f s   %6.2f GB/s\n", t, r.bytes / t * 1e-9);
   std::printf("  median %6.3f s   %6.2f GB/s\n", median, r.bytes / median * 1e-9);
   auto j = grid_json(grid);
   j.update({{"command", "bench-read"},
@@ -156,7 +157,6 @@ int run_demo(const workflows::demo_options& o, const common_options& c) {
   return r.first_zero_pivot >= 0 ? static_cast<int>(exit_code::singular) : 0;
 }
 
-
 // Progress of the factorization on stderr, from rank 0, at most once a second; on a
 // terminal one line rewritten in place.
 workflows::progress_callback progress_printer() {
@@ -167,7 +167,8 @@ workflows::progress_callback progress_printer() {
     if (!done && seconds - *last < 1.0) return;
     *last = seconds;
     const double left = fraction > 0 ? seconds * (1.0 - fraction) / fraction : 0.0;
-    std::fprintf(stderr, "%sfactorization %5.1f %%  elapsed %6.0f s  left ~%6.0f s  %7.2f GFLOP/s%s",
+    std::fprintf(stderr,
+                 "%sfactorization %5.1f %%  elapsed %6.0f s  left ~%6.0f s  %7.2f GFLOP/s%s",
                  terminal ? "\r" : "", 100.0 * fraction, seconds, left, gflops,
                  terminal && !done ? "" : "\n");
     std::fflush(stderr);
@@ -199,26 +200,39 @@ std::string resume_command(const process_grid& grid, const std::string& dir) {
 }
 
 // What rank 0 says after a solve or a resume, and the exit code.
-int report_solve(const process_grid& grid, const workflows::solve_result& r, index_t block, const std::string& checkpoint_dir, bool quiet, const common_options& c) {
+int report_solve(const process_grid& grid, const workflows::solve_result& r, index_t block,
+                 const std::string& checkpoint_dir, bool quiet, const common_options& c) {
   if (grid.rank() != 0) return r.stopped ? static_cast<int>(exit_code::stopped) : 0;
   auto j = grid_json(grid);
-  j.update({{"command", "solve"}, {"input", r.input}, {"output", r.output}, {"n", r.n}, {"nrhs", r.nrhs},
-            {"type", r.type}, {"block", block}});
+  j.update({{"command", "solve"},
+            {"input", r.input},
+            {"output", r.output},
+            {"n", r.n},
+            {"nrhs", r.nrhs},
+            {"type", r.type},
+            {"block", r.block}});
   if (!checkpoint_dir.empty()) {
     const double total = lu_flops<double>(static_cast<double>(r.n));
     const double left = lu_flops<double>(static_cast<double>(r.n - r.columns_done));
-    j["checkpoint"] = {{"dir", checkpoint_dir}, {"columns_done", r.columns_done},
+    j["checkpoint"] = {{"dir", checkpoint_dir},
+                       {"columns_done", r.columns_done},
                        {"flops_done_percent", r.n ? 100.0 * (1.0 - left / total) : 0.0},
                        {"factor_seconds_all_runs", r.factor_seconds_total},
-                       {"restarts", r.restarts}, {"checkpoints", r.checkpoints}};
+                       {"restarts", r.restarts},
+                       {"checkpoints", r.checkpoints}};
   }
   if (r.stopped) {
-    std::printf("gridlu: stopped after column %lld of %lld with a checkpoint in %s\n"
-                "resume with: %s\n",
-                static_cast<long long>(r.columns_done), static_cast<long long>(r.n),
-                checkpoint_dir.c_str(), resume_command(grid, checkpoint_dir).c_str());
-    j.update({{"status", "stopped"}, {"times", {{"read", r.read_seconds}, {"factor", r.factor_seconds},
-                                                 {"write", r.write_seconds}, {"total", r.total_seconds}}}});
+    std::printf(
+        "gridlu: stopped after column %lld of %lld with a checkpoint in %s\n"
+        "resume with: %s\n",
+        static_cast<long long>(r.columns_done), static_cast<long long>(r.n), checkpoint_dir.c_str(),
+        resume_command(grid, checkpoint_dir).c_str());
+    j.update({{"status", "stopped"},
+              {"times",
+               {{"read", r.read_seconds},
+                {"factor", r.factor_seconds},
+                {"write", r.write_seconds},
+                {"total", r.total_seconds}}}});
     write_report(c.report, j);
     return static_cast<int>(exit_code::stopped);
   }
@@ -226,19 +240,21 @@ int report_solve(const process_grid& grid, const workflows::solve_result& r, ind
   const bool accepted = worst <= r.threshold;
   if (!quiet) {
     std::printf("gridlu solve  %s -> %s\n", r.input.c_str(), r.output.c_str());
-    std::printf("  system     n = %lld, %lld right-hand side(s), %s\n",
-                static_cast<long long>(r.n), static_cast<long long>(r.nrhs), r.type.c_str());
+    std::printf("  system     n = %lld, %lld right-hand side(s), %s\n", static_cast<long long>(r.n),
+                static_cast<long long>(r.nrhs), r.type.c_str());
     std::printf("  grid       %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
-                grid.size(), static_cast<long long>(block));
-    std::printf("  time       read %.2f s | %s %.2f s | solve %.2f s | check %.2f s | write %.2f s"
-                " | total %.2f s\n",
-                r.read_seconds, r.refactored ? "factor" : "factor (saved)", r.factor_seconds,
-                r.solve_seconds, r.check_seconds, r.write_seconds, r.total_seconds);
+                grid.size(), static_cast<long long>(r.block));
+    std::printf(
+        "  time       read %.2f s | %s %.2f s | solve %.2f s | check %.2f s | write %.2f s"
+        " | total %.2f s\n",
+        r.read_seconds, r.refactored ? "factor" : "factor (saved)", r.factor_seconds,
+        r.solve_seconds, r.check_seconds, r.write_seconds, r.total_seconds);
     if (r.refactored) std::printf("  speed      %.2f GFLOP/s in the factorization\n", r.gflops);
     if (!checkpoint_dir.empty())
-      std::printf("  checkpoint %s: %lld written, %lld restart(s), %.1f s of factorization in all runs\n",
-                  checkpoint_dir.c_str(), static_cast<long long>(r.checkpoints),
-                  static_cast<long long>(r.restarts), r.factor_seconds_total);
+      std::printf(
+          "  checkpoint %s: %lld written, %lld restart(s), %.1f s of factorization in all runs\n",
+          checkpoint_dir.c_str(), static_cast<long long>(r.checkpoints),
+          static_cast<long long>(r.restarts), r.factor_seconds_total);
     std::printf("  accuracy   worst backward error %.2e (accepted up to 10 n eps = %.2e): %s\n",
                 worst, r.threshold, accepted ? "ACCEPTED" : "SUSPECT");
   }
@@ -264,7 +280,7 @@ int run_solve(solve_cli& s, const common_options& c) {
   auto& o = s.options;
   o.progress = progress_if(grid, s.quiet, s.progress);
   const auto r = workflows::solve_file(grid, o);
-  return report_solve(grid, r, o.block, o.checkpoint_dir, s.quiet, c);
+  return report_solve(grid, r, o.checkpoint_dir, s.quiet, c);
 }
 
 int run_resume(resume_cli& s, const common_options& c) {
@@ -274,20 +290,21 @@ int run_resume(resume_cli& s, const common_options& c) {
   const auto r = workflows::resume_dir(grid, o);
   if (r.already_complete) {
     if (grid.rank() == 0)
-      std::printf("gridlu: the solve in %s is complete; X is in %s (nothing to do)\n", o.dir.c_str(),
-                  r.output.c_str());
+      std::printf("gridlu: the solve in %s is complete; X is in %s (nothing to do)\n",
+                  o.dir.c_str(), r.output.c_str());
     return 0;
   }
-  return report_solve(grid, r, o.block ? o.block : workflows::default_block, o.dir, s.quiet, c);
+  return report_solve(grid, r, o.dir, s.quiet, c);
 }
 
 int run_generate(const workflows::generate_options& o, const common_options& c) {
   const auto grid = make_grid(c);
   workflows::generate_file(grid, o);
   if (grid.rank() == 0)
-    std::printf("gridlu generate: random %s system, n = %lld, %lld right-hand side(s), seed %llu -> %s\n",
-                o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.nrhs),
-                static_cast<unsigned long long>(o.seed), o.output.c_str());
+    std::printf(
+        "gridlu generate: random %s system, n = %lld, %lld right-hand side(s), seed %llu -> %s\n",
+        o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.nrhs),
+        static_cast<unsigned long long>(o.seed), o.output.c_str());
   return 0;
 }
 
@@ -304,7 +321,8 @@ void checkpoint_summary(const std::string& dir) {
   if (!std::filesystem::exists(state)) throw error(exit_code::input, "no checkpoint in " + dir);
   std::map<std::string, std::string> a;
   for (const auto& [k, v] : io::describe(state).attributes) a[k] = v;
-  if (a["gridlu_kind"] != "checkpoint") throw error(exit_code::input, state + " is not a gridlu checkpoint");
+  if (a["gridlu_kind"] != "checkpoint")
+    throw error(exit_code::input, state + " is not a gridlu checkpoint");
   const auto number = [&](const std::string& key) {
     try {
       return std::stod(a.at(key));
@@ -317,10 +335,11 @@ void checkpoint_summary(const std::string& dir) {
   std::printf("checkpoint %s\n", dir.c_str());
   std::printf("solve      %s -> %s (%s, n = %s)\n", a["input"].c_str(), a["output"].c_str(),
               a["type"].c_str(), a["n"].c_str());
-  std::printf("progress   %s of %s columns eliminated, %.1f %% of the flops\n", a["columns_done"].c_str(),
-              a["n"].c_str(), percent);
+  std::printf("progress   %s of %s columns eliminated, %.1f %% of the flops\n",
+              a["columns_done"].c_str(), a["n"].c_str(), percent);
   std::printf("time       %s s of factorization over all runs\n", a["elapsed_seconds"].c_str());
-  std::printf("restarts   %s\ncheckpoints %s written\n", a["restarts"].c_str(), a["checkpoints"].c_str());
+  std::printf("restarts   %s\ncheckpoints %s written\n", a["restarts"].c_str(),
+              a["checkpoints"].c_str());
   const auto done = checkpoint::completed(dir);
   std::printf("status     %s\n", done ? ("complete, X in " + *done).c_str() : "in progress");
 }
@@ -347,8 +366,10 @@ int run_info(const std::string& path) {
     if (k == "gridlu_kind") kind = v;
     if (k == "gridlu_format") format = v;
   }
-  if (kind.empty()) std::printf("kind       foreign (not written by gridlu)\n");
-  else std::printf("kind       gridlu %s, format %s\n", kind.c_str(), format.c_str());
+  if (kind.empty())
+    std::printf("kind       foreign (not written by gridlu)\n");
+  else
+    std::printf("kind       gridlu %s, format %s\n", kind.c_str(), format.c_str());
   for (const auto& [k, v] : d.attributes) std::printf("attribute  %s = %s\n", k.c_str(), v.c_str());
   const auto attributes_of = [](const io::description::item& item) {
     for (const auto& [k, v] : item.attributes)
@@ -391,8 +412,10 @@ int main(int argc, char** argv) {
   workflows::read_bench_options read_bench;
   bench_cmd->add_option("--read", read_bench.path,
                         "instead: time reading a dataset of this HDF5 file into the grid");
-  bench_cmd->add_option("--dataset", read_bench.dataset, "with --read: the dataset")->capture_default_str();
-  bench_cmd->add_flag("--column-major", read_bench.column_major, "with --read: the dataset holds the transpose");
+  bench_cmd->add_option("--dataset", read_bench.dataset, "with --read: the dataset")
+      ->capture_default_str();
+  bench_cmd->add_flag("--column-major", read_bench.column_major,
+                      "with --read: the dataset holds the transpose");
   add_common(bench_cmd, common);
   bench_cmd->footer(
       "Examples:\n  mpiexec -n 2 gridlu bench --n 8192 --grid 1x2 --repeat 3\n"
@@ -411,38 +434,46 @@ int main(int argc, char** argv) {
   demo_cmd->footer("Example:\n  mpiexec -n 2 gridlu demo --n 3000 --rhs 4\n\n" +
                    std::string(exit_codes_help));
 
-
   solve_cli solve;
   auto& so = solve.options;
   auto* solve_cmd = app.add_subcommand("solve", "solve A X = B read from an HDF5 file, write X");
   solve_cmd->add_option("input", so.input, "HDF5 file with A (and B)")->required();
   solve_cmd->add_option("--out", so.output, "HDF5 file to write X to")->required();
-  solve_cmd->add_option("--matrix-dataset", so.matrix_dataset, "name of A in INPUT")->capture_default_str();
+  solve_cmd->add_option("--matrix-dataset", so.matrix_dataset, "name of A in INPUT")
+      ->capture_default_str();
   solve_cmd->add_option("--rhs-dataset", so.rhs_dataset, "name of B")->capture_default_str();
   solve_cmd->add_option("--rhs-file", so.rhs_file, "read B from this file instead of INPUT");
   solve_cmd->add_option("--block", so.block, "block size nb")->capture_default_str();
   solve_cmd->add_flag("--column-major", so.column_major,
-                      "A's dataset holds the transpose (element [i][j] is A(j, i)), as column-major writers store it");
-  solve_cmd->add_option("--save-factors", so.save_factors, "also write the LU factors to this file");
-  solve_cmd->add_option("--factors", so.factors, "solve with factors saved earlier instead of factoring");
-  solve_cmd->add_flag("--force", so.force, "replace OUTPUT (and the --save-factors file) if it exists");
+                      "A's dataset holds the transpose (element [i][j] is A(j, i)), as "
+                      "column-major writers store it");
+  solve_cmd->add_option("--save-factors", so.save_factors,
+                        "also write the LU factors to this file");
+  solve_cmd->add_option("--factors", so.factors,
+                        "solve with factors saved earlier instead of factoring");
+  solve_cmd->add_flag("--force", so.force,
+                      "replace OUTPUT (and the --save-factors file) if it exists");
   solve_cmd->add_flag("--quiet", solve.quiet, "print nothing but errors");
-  solve_cmd->add_flag("--progress", solve.progress, "show factorization progress even when stderr is not a terminal");
+  solve_cmd->add_flag("--progress", solve.progress,
+                      "show factorization progress even when stderr is not a terminal");
   solve_cmd->add_option("--checkpoint", so.checkpoint_dir,
                         "keep checkpoints in this directory; SIGTERM, SIGUSR1 and SIGINT then stop "
                         "with a checkpoint (exit 5)");
   solve_cmd->add_option("--checkpoint-every", so.checkpoint_every, "minutes between checkpoints")
       ->check(CLI::NonNegativeNumber);
-  solve_cmd->add_option("--stop-after", so.stop_after,
-                        "time budget in minutes: stop with a checkpoint early enough to end inside it")
+  solve_cmd
+      ->add_option("--stop-after", so.stop_after,
+                   "time budget in minutes: stop with a checkpoint early enough to end inside it")
       ->check(CLI::NonNegativeNumber);
   add_common(solve_cmd, common);
   solve_cmd->footer(
       "Examples:\n"
       "  mpiexec -n 4 gridlu solve plate.h5 --out charges.h5\n"
       "  mpiexec -n 4 gridlu solve plate.h5 --out x.h5 --save-factors plate-lu.h5\n"
-      "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out x2.h5\n"
-      "  mpiexec -n 64 gridlu solve big.h5 --out x.h5 --checkpoint ckpt --checkpoint-every 30 --stop-after 710\n\n" +
+      "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out "
+      "x2.h5\n"
+      "  mpiexec -n 64 gridlu solve big.h5 --out x.h5 --checkpoint ckpt --checkpoint-every 30 "
+      "--stop-after 710\n\n" +
       std::string(exit_codes_help));
 
   workflows::generate_options gen;
@@ -453,24 +484,33 @@ int main(int argc, char** argv) {
   random_cmd->add_option("--n", gen.n, "number of unknowns")->required();
   random_cmd->add_option("--out", gen.output, "HDF5 file to write")->required();
   random_cmd->add_option("--rhs", gen.nrhs, "number of right-hand sides")->capture_default_str();
-  random_cmd->add_option("--type", gen.type, "float32, float64, complex64 or complex128")->capture_default_str();
+  random_cmd->add_option("--type", gen.type, "float32, float64, complex64 or complex128")
+      ->capture_default_str();
   random_cmd->add_option("--seed", gen.seed, "seed")->capture_default_str();
   random_cmd->add_flag("--force", gen.force, "replace the file if it exists");
   add_common(random_cmd, common);
-  random_cmd->footer("Example:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5");
+  random_cmd->footer(
+      "Example:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5");
 
   resume_cli resume;
-  auto* resume_cmd = app.add_subcommand("resume", "finish a checkpointed solve, on any number of ranks");
+  auto* resume_cmd =
+      app.add_subcommand("resume", "finish a checkpointed solve, on any number of ranks");
   resume_cmd->add_option("dir", resume.options.dir, "the solve's checkpoint directory")->required();
-  resume_cmd->add_option("--block", resume.options.block, "block size nb (default 64; any value works)");
-  resume_cmd->add_option("--out", resume.options.output, "write X here instead of the recorded OUTPUT");
+  resume_cmd->add_option(
+      "--block", resume.options.block,
+      "block size nb (default: the one the checkpoint was made with; any works)");
+  resume_cmd->add_option("--out", resume.options.output,
+                         "write X here instead of the recorded OUTPUT");
   resume_cmd->add_flag("--force", resume.options.force, "replace OUTPUT if it exists");
-  resume_cmd->add_option("--checkpoint-every", resume.options.checkpoint_every, "minutes between checkpoints")
+  resume_cmd
+      ->add_option("--checkpoint-every", resume.options.checkpoint_every,
+                   "minutes between checkpoints")
       ->check(CLI::NonNegativeNumber);
   resume_cmd->add_option("--stop-after", resume.options.stop_after, "time budget in minutes")
       ->check(CLI::NonNegativeNumber);
   resume_cmd->add_flag("--quiet", resume.quiet, "print nothing but errors");
-  resume_cmd->add_flag("--progress", resume.progress, "show progress even when stderr is not a terminal");
+  resume_cmd->add_flag("--progress", resume.progress,
+                       "show progress even when stderr is not a terminal");
   add_common(resume_cmd, common);
   resume_cmd->footer("Example:\n  mpiexec -n 128 gridlu resume ckpt --stop-after 710\n\n" +
                      std::string(exit_codes_help));

@@ -142,8 +142,8 @@ lu_result factor(dist_matrix<T>& a, const lu_options& options) {
   return factor(a, lu_result{}, options);
 }
 
-#define INSTANTIATE(T)                                                                \
-  template lu_result factor<T>(dist_matrix<T>&, lu_result, const lu_options&);       \
+#define INSTANTIATE(T)                                                         \
+  template lu_result factor<T>(dist_matrix<T>&, lu_result, const lu_options&); \
   template lu_result factor<T>(dist_matrix<T>&, const lu_options&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE

@@ -4,9 +4,9 @@
 
 #include <algorithm>
 #include <charconv>
-#include <filesystem>
 #include <cstdio>
 #include <cstring>
+#include <filesystem>
 #include <numeric>
 
 #include "gridlu/generate.hpp"
@@ -125,8 +125,10 @@ struct slab_plan {
     const auto move = [](auto* from, auto* to, index_t n) { std::copy_n(from, n, to); };
     if (transposed) {  // file row t is matrix column first + t: contiguous both ways
       for (index_t t = 0; t < h; ++t) {
-        if constexpr (into_matrix) move(piece + t * width, m.at(0, first + t), width);
-        else move(m.at(0, first + t), piece + t * width, width);
+        if constexpr (into_matrix)
+          move(piece + t * width, m.at(0, first + t), width);
+        else
+          move(m.at(0, first + t), piece + t * width, width);
       }
       return;
     }
@@ -140,8 +142,10 @@ struct slab_plan {
       for (index_t t = 0; t < h; ++t) {
         auto* row = piece + t * width + l0;
         for (index_t c = 0; c < n; ++c) {
-          if constexpr (into_matrix) column[c][t] = row[c];
-          else row[c] = column[c][t];
+          if constexpr (into_matrix)
+            column[c][t] = row[c];
+          else
+            row[c] = column[c][t];
         }
       }
     }
@@ -175,8 +179,8 @@ handle memory_space(index_t elements) {
 
 // Reads file rows [first, first + count) as T, widening a real dataset into a complex T.
 template <scalar T>
-std::vector<T> read_slab(hid_t dset, bool file_complex, index_t first, index_t count,
-                         index_t cols, const std::string& what) {
+std::vector<T> read_slab(hid_t dset, bool file_complex, index_t first, index_t count, index_t cols,
+                         const std::string& what) {
   const auto file_space = select_rows(dset, first, count);
   const auto mem_space = memory_space(count * cols);
   std::vector<T> out(static_cast<std::size_t>(count * cols));
@@ -236,12 +240,13 @@ file::file(const process_grid& grid, const std::string& path, mode m)
       h_->file = handle(check(id, "cannot create " + path, exit_code::usage), H5Fclose);
       return;
     }
-    struct stat st{};
+    struct stat st {};
     if (stat(path.c_str(), &st) != 0)
       throw error(exit_code::input, "cannot open " + path + ": " + std::strerror(errno));
     if (H5Fis_hdf5(path.c_str()) <= 0) throw error(exit_code::input, path + " is not an HDF5 file");
     const hid_t id = H5Fopen(path.c_str(), H5F_ACC_RDONLY, fapl.get());
-    h_->file = handle(check(id, path + " cannot be opened as HDF5 (truncated or damaged?)"), H5Fclose);
+    h_->file =
+        handle(check(id, path + " cannot be opened as HDF5 (truncated or damaged?)"), H5Fclose);
   });
 }
 
@@ -269,15 +274,17 @@ void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) con
   const auto s = describe_dataset(dset.get());
   const slab_plan plan = make_plan(*grid_, m, transposed);
   const index_t file_rows = plan.along.extent();
-  const bool fits = s.dims.size() == 2 ? s.dims[0] == file_rows && s.dims[1] == plan.file_cols
-                                       : s.dims.size() == 1 && s.dims[0] == file_rows && plan.file_cols == 1;
+  const bool fits = s.dims.size() == 2
+                        ? s.dims[0] == file_rows && s.dims[1] == plan.file_cols
+                        : s.dims.size() == 1 && s.dims[0] == file_rows && plan.file_cols == 1;
   if (!fits || !s.usable || (s.is_complex && !scalar_traits<T>::is_complex))
     throw error(exit_code::internal, "read: " + name + " does not fit the matrix");
   const std::string what = quoted(name) + " from " + path_;
   const int me = grid_->rank();
   const index_t mine_across = plan.across.local_extent(plan.my_across());
   const handle type(H5Dget_type(dset.get()), H5Tclose);
-  const read_ahead ahead(path_, dset.get(), plan.file_cols * static_cast<index_t>(H5Tget_size(type.get())));
+  const read_ahead ahead(path_, dset.get(),
+                         plan.file_cols * static_cast<index_t>(H5Tget_size(type.get())));
   std::vector<T> slab, sent, received;
   for (index_t round = 0; round < plan.rounds(); ++round) {
     const index_t s_me = plan.slab(round, me);
@@ -339,7 +346,8 @@ std::uint64_t file::checksum(const std::string& name, bool transposed) const {
       for (index_t t = 0; t < h; ++t)
         for (index_t c = 0; c < file_cols; ++c) {
           const T& v = slab[t * file_cols + c];
-          sum ^= transposed ? detail::entry_hash(c, first + t, v) : detail::entry_hash(first + t, c, v);
+          sum ^= transposed ? detail::entry_hash(c, first + t, v)
+                            : detail::entry_hash(first + t, c, v);
         }
     }
   });
@@ -439,7 +447,8 @@ std::vector<index_t> file::read_indices(const std::string& name) const {
     const auto dset = open_dataset(h_->file.get(), name, path_);
     const auto s = describe_dataset(dset.get());
     if (s.dims.size() != 1 || s.type.rfind("int", 0) != 0)
-      throw error(exit_code::input, quoted(name) + " in " + path_ + " is not a 1-D integer dataset");
+      throw error(exit_code::input,
+                  quoted(name) + " in " + path_ + " is not a 1-D integer dataset");
     values.resize(static_cast<std::size_t>(s.dims[0]));
     check(H5Dread(dset.get(), H5T_NATIVE_INT64, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()),
           "cannot read " + quoted(name) + " from " + path_);
@@ -447,7 +456,8 @@ std::vector<index_t> file::read_indices(const std::string& name) const {
   return values;
 }
 
-void file::set_attribute(const std::string& object, const std::string& key, const attribute& value) {
+void file::set_attribute(const std::string& object, const std::string& key,
+                         const attribute& value) {
   comm::together(grid_->all(), [&] {
     const handle obj(check(H5Oopen(h_->file.get(), object.c_str(), H5P_DEFAULT),
                            "no object " + quoted(object) + " in " + path_),
@@ -476,10 +486,10 @@ void file::set_attribute(const std::string& object, const std::string& key, cons
       text = std::get<std::string>(value).c_str();
       data = &text;
     }
-    const handle attr(check(H5Acreate2(obj.get(), key.c_str(), type.get(), space.get(),
-                                       H5P_DEFAULT, H5P_DEFAULT),
-                            "cannot write attribute " + key + " in " + path_),
-                      H5Aclose);
+    const handle attr(
+        check(H5Acreate2(obj.get(), key.c_str(), type.get(), space.get(), H5P_DEFAULT, H5P_DEFAULT),
+              "cannot write attribute " + key + " in " + path_),
+        H5Aclose);
     check(H5Awrite(attr.get(), type.get(), data), "cannot write attribute " + key);
   });
 }
@@ -573,7 +583,7 @@ std::optional<attribute> file::get_attribute(const std::string& object,
 }
 
 file_identity identify(const std::string& path) {
-  struct stat st{};
+  struct stat st {};
   stat(path.c_str(), &st);
   return {std::filesystem::absolute(path).string(), static_cast<std::int64_t>(st.st_size),
           static_cast<double>(st.st_mtim.tv_sec) + 1e-9 * static_cast<double>(st.st_mtim.tv_nsec)};
@@ -596,12 +606,13 @@ std::optional<std::uint64_t> parse_checksum(const std::string& text) {
 std::string library_version() {
   unsigned major = 0, minor = 0, release = 0;
   H5get_libversion(&major, &minor, &release);
-  return "HDF5 " + std::to_string(major) + "." + std::to_string(minor) + "." + std::to_string(release);
+  return "HDF5 " + std::to_string(major) + "." + std::to_string(minor) + "." +
+         std::to_string(release);
 }
 
 description describe(const std::string& path) {
   silence_hdf5();
-  struct stat st{};
+  struct stat st {};
   if (stat(path.c_str(), &st) != 0)
     throw error(exit_code::input, "cannot open " + path + ": " + std::strerror(errno));
   if (H5Fis_hdf5(path.c_str()) <= 0) throw error(exit_code::input, path + " is not an HDF5 file");
@@ -633,9 +644,9 @@ description describe(const std::string& path) {
   return d;
 }
 
-#define INSTANTIATE(T)                                                                   \
-  template void file::read<T>(const std::string&, dist_matrix<T>&, bool) const;          \
-  template void file::write<T>(const std::string&, const dist_matrix<T>&, bool);         \
+#define INSTANTIATE(T)                                                           \
+  template void file::read<T>(const std::string&, dist_matrix<T>&, bool) const;  \
+  template void file::write<T>(const std::string&, const dist_matrix<T>&, bool); \
   template std::uint64_t file::checksum<T>(const std::string&, bool) const;
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE

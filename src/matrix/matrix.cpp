@@ -100,9 +100,9 @@ std::optional<std::pair<index_t, index_t>> first_nonfinite(const dist_matrix<T>&
   for (index_t lj = 0; lj < a.local_cols(); ++lj) {
     const T* column = a.at(0, lj);
     for (index_t li = 0; li < a.local_rows(); ++li) {
-      const bool finite = scalar_traits<T>::is_complex
-                              ? std::isfinite(std::real(column[li])) && std::isfinite(std::imag(column[li]))
-                              : std::isfinite(std::real(column[li]));
+      const bool finite = scalar_traits<T>::is_complex ? std::isfinite(std::real(column[li])) &&
+                                                             std::isfinite(std::imag(column[li]))
+                                                       : std::isfinite(std::real(column[li]));
       if (!finite) {
         const index_t g = layout.rows.global(a.grid().myrow(), li) * a.cols() +
                           layout.cols.global(a.grid().mycol(), lj);
@@ -129,8 +129,8 @@ std::uint64_t content_checksum(const dist_matrix<T>& a) {
   return sum;
 }
 
-#define INSTANTIATE(T)                                                                   \
-  template class dist_matrix<T>;                                                         \
+#define INSTANTIATE(T)                                                                           \
+  template class dist_matrix<T>;                                                                 \
   template std::optional<std::pair<index_t, index_t>> first_nonfinite<T>(const dist_matrix<T>&); \
   template std::uint64_t content_checksum<T>(const dist_matrix<T>&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)

@@ -4,8 +4,8 @@
 #include <filesystem>
 
 #include "gridlu/accuracy.hpp"
-#include "gridlu/generate.hpp"
 #include "gridlu/checkpoint.hpp"
+#include "gridlu/generate.hpp"
 #include "gridlu/io.hpp"
 #include "gridlu/lu.hpp"
 #include "gridlu/version.hpp"
@@ -19,8 +19,8 @@ namespace {
 constexpr std::int64_t format_version = 1;
 
 std::string entry_name(const std::string& dataset, std::pair<index_t, index_t> at, bool one_d) {
-  return dataset + "[" + std::to_string(at.first) + (one_d ? "" : ", " + std::to_string(at.second)) +
-         "]";
+  return dataset + "[" + std::to_string(at.first) +
+         (one_d ? "" : ", " + std::to_string(at.second)) + "]";
 }
 
 template <scalar T>
@@ -86,8 +86,10 @@ inputs open_inputs(const process_grid& grid, const solve_options& o) {
   if (b.dims.empty() || b.dims.size() > 2 || b.dims[0] != in.n)
     throw error(exit_code::input, b_name + " must have " + n + " rows (A is " + n + " x " + n +
                                       ") and one or two dimensions");
-  if (b.dims.size() == 2 && b.dims[1] < 1) throw error(exit_code::input, b_name + " has no columns");
-  if (b.is_complex && !a.is_complex) throw error(exit_code::input, b_name + " is complex but A is real");
+  if (b.dims.size() == 2 && b.dims[1] < 1)
+    throw error(exit_code::input, b_name + " has no columns");
+  if (b.is_complex && !a.is_complex)
+    throw error(exit_code::input, b_name + " is complex but A is real");
   return in;
 }
 
@@ -100,13 +102,14 @@ class stop_signals {
 public:
   stop_signals() {
     stop_requested = 0;
-    struct sigaction sa{};
+    struct sigaction sa {};
     sa.sa_handler = request_stop;
     sigemptyset(&sa.sa_mask);
     for (std::size_t k = 0; k < std::size(signals_); ++k) sigaction(signals_[k], &sa, &saved_[k]);
   }
   ~stop_signals() {
-    for (std::size_t k = 0; k < std::size(signals_); ++k) sigaction(signals_[k], &saved_[k], nullptr);
+    for (std::size_t k = 0; k < std::size(signals_); ++k)
+      sigaction(signals_[k], &saved_[k], nullptr);
   }
   stop_signals(const stop_signals&) = delete;
   stop_signals& operator=(const stop_signals&) = delete;
@@ -126,14 +129,16 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
   const double start = comm::wtime();
   const double done_before = total - lu_flops<T>(static_cast<double>(n - lu.columns_done));
   const bool checkpointing = !o.checkpoint_dir.empty();
+  const double before = r.factor_seconds_total;  // earlier runs of this solve
   // Until a checkpoint has been timed, assume the disk writes (and reads back) 100 MB/s.
-  double save_estimate = 2.0 * static_cast<double>(n) * static_cast<double>(n) * sizeof(T) / 100e6 + 0.5;
+  double save_estimate =
+      2.0 * static_cast<double>(n) * static_cast<double>(n) * sizeof(T) / 100e6 + 0.5;
   double last_save = start;
   index_t saved_at = -1;
   const auto save = [&](const lu_result& state) {
     const index_t done = state.columns_done;
     ck.done.columns_done = done;
-    ck.done.elapsed_seconds = r.factor_seconds_total + (comm::wtime() - start);
+    ck.done.elapsed_seconds = before + (comm::wtime() - start);
     ++ck.done.checkpoints;
     save_estimate = timed(grid, [&] { checkpoint::save(grid, o.checkpoint_dir, a, state, ck); });
     r.write_seconds += save_estimate;
@@ -156,8 +161,8 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
       // Go on only if one more step and a checkpoint still fit in the budget.
       const double rate = seconds > 0 ? flops / seconds : 0.0;
       const index_t next = std::min(n, done + a.block());
-      const double step_flops = lu_flops<T>(static_cast<double>(n - done)) -
-                                lu_flops<T>(static_cast<double>(n - next));
+      const double step_flops =
+          lu_flops<T>(static_cast<double>(n - done)) - lu_flops<T>(static_cast<double>(n - next));
       const double step = rate > 0 ? step_flops / rate : 0.0;
       const double tail = done == n ? 1.5 * r.read_seconds + 0.5 : 0.0;  // solve, check, write
       if (now - o.started + step + tail + 1.25 * save_estimate + 0.5 > o.stop_after)
@@ -174,17 +179,18 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
   };
   const double seconds = timed(grid, [&] { lu = factor(a, std::move(lu), lo); });
   r.factor_seconds = seconds;
-  r.factor_seconds_total += seconds;
   r.gflops = (total - done_before) / seconds * 1e-9;
   r.columns_done = lu.columns_done;
   // With everything eliminated, one last checkpoint covers the solve phase too.
   if (checkpointing && !r.stopped && saved_at != n) save(lu);
+  r.factor_seconds_total = before + seconds;
   r.checkpoints = ck.done.checkpoints;
   return !r.stopped;
 }
 
 template <class V>
-void set_all(io::file& f, const std::string& object, std::initializer_list<std::pair<const char*, V>> attrs) {
+void set_all(io::file& f, const std::string& object,
+             std::initializer_list<std::pair<const char*, V>> attrs) {
   for (const auto& [key, value] : attrs) f.set_attribute(object, key, value);
 }
 
@@ -197,6 +203,7 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
   r.n = n;
   r.type = std::string(scalar_traits<T>::name);
   r.input = o.input;
+  r.block = o.block;
   r.output = o.output;
   const bool rhs_1d = in.b_shape.dims.size() == 1;
   r.nrhs = rhs_1d ? 1 : in.b_shape.dims[1];
@@ -205,7 +212,8 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
   std::optional<staged_output> factors_out;
   if (!o.save_factors.empty()) factors_out.emplace(grid, o.save_factors, o.force);
   if (!o.checkpoint_dir.empty())
-    checkpoint::prepare(grid, o.checkpoint_dir, static_cast<double>(n) * static_cast<double>(n) * sizeof(T));
+    checkpoint::prepare(grid, o.checkpoint_dir,
+                        static_cast<double>(n) * static_cast<double>(n) * sizeof(T));
   const io::file_identity source = io::identify(o.input);
 
   dist_matrix<T> a(grid, n, n, o.block), b(grid, n, r.nrhs, o.block);
@@ -218,7 +226,8 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
     saved.emplace(grid, o.factors, io::file::mode::read);
     if (text_attribute(*saved, "gridlu_kind") != "factors")
       throw error(exit_code::input, o.factors + " is not a gridlu factors file");
-    if (number_attribute(*saved, "n") != static_cast<double>(n) || text_attribute(*saved, "type") != r.type)
+    if (number_attribute(*saved, "n") != static_cast<double>(n) ||
+        text_attribute(*saved, "type") != r.type)
       throw error(exit_code::input, "the factors in " + o.factors + " are not of a " +
                                         std::to_string(n) + " x " + std::to_string(n) + " " +
                                         r.type + " matrix like " + o.input);
@@ -239,8 +248,9 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
     } else if (resumed) {
       // The inputs must be the ones the checkpoint was made from.
       if (in.input.checksum<T>(o.matrix_dataset, o.column_major) != resumed->what.a_checksum)
-        throw error(exit_code::input, o.matrix_dataset + " in " + o.input +
-                                          " changed since the checkpoint was made; it cannot be resumed");
+        throw error(exit_code::input,
+                    o.matrix_dataset + " in " + o.input +
+                        " changed since the checkpoint was made; it cannot be resumed");
       lu = checkpoint::load(grid, o.checkpoint_dir, a);
     } else {
       in.input.read(o.matrix_dataset, a, o.column_major);
@@ -255,9 +265,11 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
     if (resumed) {
       ck = *resumed;
       if (b_sum != ck.what.b_checksum)
-        throw error(exit_code::input, o.rhs_dataset + " in " + in.rhs().path() +
-                                          " changed since the checkpoint was made; it cannot be resumed");
+        throw error(exit_code::input,
+                    o.rhs_dataset + " in " + in.rhs().path() +
+                        " changed since the checkpoint was made; it cannot be resumed");
       ++ck.done.restarts;
+      ck.what.block = o.block;
       ck.what.output = std::filesystem::absolute(o.output).string();
       r.factor_seconds_total = ck.done.elapsed_seconds;
     } else {
@@ -266,10 +278,23 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
       const auto absolute = [](const std::string& p) {
         return p.empty() ? p : std::filesystem::absolute(p).string();
       };
-      ck.what = {absolute(o.input), absolute(o.output), o.matrix_dataset, o.rhs_dataset,
-                 absolute(o.rhs_file), absolute(o.save_factors), o.column_major, r.type, n, r.nrhs,
-                 source.size, rhs_identity.size, source.mtime, rhs_identity.mtime,
-                 content_checksum(a), b_sum};
+      ck.what = {absolute(o.input),
+                 absolute(o.output),
+                 o.matrix_dataset,
+                 o.rhs_dataset,
+                 absolute(o.rhs_file),
+                 absolute(o.save_factors),
+                 o.column_major,
+                 r.type,
+                 n,
+                 r.nrhs,
+                 o.block,
+                 source.size,
+                 rhs_identity.size,
+                 source.mtime,
+                 rhs_identity.mtime,
+                 content_checksum(a),
+                 b_sum};
     }
     r.restarts = ck.done.restarts;
     if (!factor_checkpointed(grid, o, a, lu, ck, r)) {
@@ -328,15 +353,16 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
                             {"gridlu_format", format_version},
                             {"gridlu_version", std::string(version)},
                             {"source_file", source.path}});
-    set_all<io::attribute>(f, "/X",
-                           {{"backward_error", worst},
-                            {"backward_errors", r.backward_errors},
-                            {"factor_seconds", r.factor_seconds},
-                            {"gflops", r.gflops},
-                            {"grid", std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols())},
-                            {"block", std::int64_t{o.block}},
-                            {"ranks", std::int64_t{grid.size()}},
-                            {"type", r.type}});
+    set_all<io::attribute>(
+        f, "/X",
+        {{"backward_error", worst},
+         {"backward_errors", r.backward_errors},
+         {"factor_seconds", r.factor_seconds},
+         {"gflops", r.gflops},
+         {"grid", std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols())},
+         {"block", std::int64_t{o.block}},
+         {"ranks", std::int64_t{grid.size()}},
+         {"type", r.type}});
     f.close();
     out.commit();
   });
@@ -348,7 +374,8 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
 solve_result solve_inputs(const process_grid& grid, const solve_options& o, const inputs& in,
                           const std::optional<checkpoint::header>& resumed) {
   solve_result result;
-  dispatch_scalar(in.a_shape.type, [&]<class T>(T) { result = solve_typed<T>(grid, o, in, resumed); });
+  dispatch_scalar(in.a_shape.type,
+                  [&]<class T>(T) { result = solve_typed<T>(grid, o, in, resumed); });
   return result;
 }
 
@@ -387,7 +414,7 @@ solve_result resume_dir(const process_grid& grid, const resume_options& ro) {
   o.rhs_file = w.rhs_file;
   o.column_major = w.column_major;
   o.save_factors = w.save_factors;
-  o.block = ro.block > 0 ? ro.block : default_block;
+  o.block = ro.block > 0 ? ro.block : w.block;
   o.force = ro.force;
   o.progress = ro.progress;
   o.checkpoint_dir = ro.dir;

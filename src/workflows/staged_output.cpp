@@ -39,8 +39,8 @@ void staged_output::commit() {
   comm::together(grid_.all(), [&] {
     if (grid_.rank() != 0) return;
     if (std::rename(temporary_.c_str(), path_.c_str()) != 0)
-      throw error(exit_code::usage, "cannot rename the finished output to " + path_ + ": " +
-                                        std::strerror(errno));
+      throw error(exit_code::usage,
+                  "cannot rename the finished output to " + path_ + ": " + std::strerror(errno));
   });
   committed_ = true;
 }

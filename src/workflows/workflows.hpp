@@ -87,7 +87,7 @@ struct solve_options {
 };
 
 struct solve_result {
-  index_t n = 0, nrhs = 0;
+  index_t n = 0, nrhs = 0, block = 0;
   std::string type;
   bool refactored = true;  // false when saved factors were used
   double read_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0,
@@ -98,7 +98,7 @@ struct solve_result {
   // Checkpointing: stopped early (by a signal or the time budget) with a checkpoint.
   bool stopped = false;
   bool already_complete = false;  // resume of a finished solve: nothing was done
-  std::string input, output;  // where A came from, where X is (or will be) written
+  std::string input, output;      // where A came from, where X is (or will be) written
   index_t columns_done = 0;
   double factor_seconds_total = 0;  // over all runs of a checkpointed solve
   std::int64_t restarts = 0, checkpoints = 0;
@@ -111,7 +111,7 @@ solve_result solve_file(const process_grid& grid, const solve_options& options);
 
 struct resume_options {
   std::string dir;
-  index_t block = 0;  // 0: the default block size
+  index_t block = 0;   // 0: the default block size
   std::string output;  // empty: the one recorded in the checkpoint
   bool force = false;
   double checkpoint_every = 0, stop_after = 0, started = 0;
