@@ -200,7 +200,7 @@ std::string resume_command(const process_grid& grid, const std::string& dir) {
 }
 
 // What rank 0 says after a solve or a resume, and the exit code.
-int report_solve(const process_grid& grid, const workflows::solve_result& r, index_t block,
+int report_solve(const process_grid& grid, const workflows::solve_result& r,
                  const std::string& checkpoint_dir, bool quiet, const common_options& c) {
   if (grid.rank() != 0) return r.stopped ? static_cast<int>(exit_code::stopped) : 0;
   auto j = grid_json(grid);
