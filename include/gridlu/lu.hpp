@@ -10,6 +10,17 @@
 
 namespace gridlu {
 
+// Seconds one rank spent in each part of the factorization; the broadcasts and the pivot
+// search include the time spent waiting for the other ranks.
+struct lu_phases {
+  double panel = 0;         // panel factorization, pivot search included
+  double pivot_search = 0;  // the reductions that find the pivots
+  double interchange = 0;   // row interchanges outside the panel
+  double broadcast = 0;     // panel along the rows, U block row down the columns
+  double trsm = 0;          // U block row
+  double gemm = 0;          // trailing update
+};
+
 struct lu_result {
   // Row i was interchanged with row pivots[i] (0-based, i <= pivots[i]), applied in
   // order i = 0..n-1: LAPACK's ipiv less one. The same on every rank.
@@ -19,6 +30,7 @@ struct lu_result {
   index_t first_zero_pivot = -1;
   // Columns eliminated so far: n when complete; pivots beyond it are not yet chosen.
   index_t columns_done = 0;
+  lu_phases phases;  // of this call, on this rank
 };
 
 struct lu_options {

@@ -105,6 +105,11 @@ int run_bench(const workflows::bench_options& o, const common_options& c) {
   std::printf("  GEMM rate     %10.2f GFLOP/s   (order %lld on all %d ranks at once)\n",
               r.gemm_gflops, static_cast<long long>(r.gemm_order), grid.size());
   std::printf("  LU / GEMM     %10.3f\n", ratio);
+  const auto& ph = r.phases;
+  std::printf(
+      "  phases (s, slowest rank): panel %.3f (pivot search %.3f) | interchanges %.3f |"
+      " broadcasts %.3f | trsm %.3f | gemm %.3f\n",
+      ph.panel, ph.pivot_search, ph.interchange, ph.broadcast, ph.trsm, ph.gemm);
   auto j = grid_json(grid);
   j.update({{"command", "bench"},
             {"n", o.n},
@@ -114,7 +119,14 @@ int run_bench(const workflows::bench_options& o, const common_options& c) {
             {"gflops", r.gflops},
             {"gemm_gflops", r.gemm_gflops},
             {"gemm_order", r.gemm_order},
-            {"ratio_to_gemm", ratio}});
+            {"ratio_to_gemm", ratio},
+            {"phases",
+             {{"panel", ph.panel},
+              {"pivot_search", ph.pivot_search},
+              {"interchange", ph.interchange},
+              {"broadcast", ph.broadcast},
+              {"trsm", ph.trsm},
+              {"gemm", ph.gemm}}}});
   write_report(c.report, j);
   return 0;
 }

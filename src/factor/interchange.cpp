@@ -34,36 +34,55 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
 
   const auto& rows = a.layout().rows;
   const int procs = rows.procs(), me = a.grid().myrow();
+  // Local row indices of the moves, by who holds the source and who the destination.
+  std::vector<std::vector<index_t>> send_rows(procs), recv_rows(procs);
+  std::vector<index_t> local_from, local_to;
+  for (const auto s : moves) {
+    const int from = rows.owner(source[s]), to = rows.owner(dest[s]);
+    if (from == me && to == me) {
+      local_from.push_back(rows.local(source[s]));
+      local_to.push_back(rows.local(dest[s]));
+    } else if (from == me) {
+      send_rows[to].push_back(rows.local(source[s]));
+    } else if (to == me) {
+      recv_rows[from].push_back(rows.local(dest[s]));
+    }
+  }
   index_t width = 0;
   for (const auto& c : columns) width += c.end - c.begin;
-  const int w = static_cast<int>(width);
-
+  // Everything goes column by column: a column is contiguous, a row is not, and walking
+  // rows across all columns costs a cache line and a page per entry.
+  const auto for_each_column = [&](auto&& f) {
+    for (const auto& c : columns)
+      for (index_t lj = c.begin; lj < c.end; ++lj) f(a.at(0, lj));
+  };
   std::vector<int> send_counts(procs, 0), recv_counts(procs, 0);
-  for (const auto s : moves) {
-    if (rows.owner(source[s]) == me) send_counts[rows.owner(dest[s])] += w;
-    if (rows.owner(dest[s]) == me) recv_counts[rows.owner(source[s])] += w;
-  }
   std::vector<T> sent, received;
-  sent.reserve(
-      static_cast<std::size_t>(std::accumulate(send_counts.begin(), send_counts.end(), 0)));
-  for (int p = 0; p < procs; ++p)
-    for (const auto s : moves)
-      if (rows.owner(source[s]) == me && rows.owner(dest[s]) == p) {
-        const index_t li = rows.local(source[s]);
-        for (const auto& c : columns)
-          for (index_t lj = c.begin; lj < c.end; ++lj) sent.push_back(*a.at(li, lj));
-      }
+  for (int p = 0; p < procs; ++p) {
+    send_counts[p] = static_cast<int>(send_rows[p].size() * width);
+    recv_counts[p] = static_cast<int>(recv_rows[p].size() * width);
+    if (send_rows[p].empty()) continue;
+    for_each_column([&](T* column) {
+      for (const index_t li : send_rows[p]) sent.push_back(column[li]);
+    });
+  }
+  // Moves within this rank, after packing (a row sent away may be overwritten here).
+  std::vector<T> held(local_from.size());
+  for_each_column([&](T* column) {
+    for (std::size_t k = 0; k < local_from.size(); ++k) held[k] = column[local_from[k]];
+    for (std::size_t k = 0; k < local_to.size(); ++k) column[local_to[k]] = held[k];
+  });
+  if (procs == 1) return;
   received.resize(
       static_cast<std::size_t>(std::accumulate(recv_counts.begin(), recv_counts.end(), 0)));
   comm::all_to_all(a.grid().col(), sent.data(), send_counts, received.data(), recv_counts);
-  auto next = received.cbegin();
-  for (int p = 0; p < procs; ++p)
-    for (const auto s : moves)
-      if (rows.owner(dest[s]) == me && rows.owner(source[s]) == p) {
-        const index_t li = rows.local(dest[s]);
-        for (const auto& c : columns)
-          for (index_t lj = c.begin; lj < c.end; ++lj) *a.at(li, lj) = *next++;
-      }
+  const T* next = received.data();
+  for (int p = 0; p < procs; ++p) {
+    if (recv_rows[p].empty()) continue;
+    for_each_column([&](T* column) {
+      for (const index_t li : recv_rows[p]) column[li] = *next++;
+    });
+  }
 }
 
 #define INSTANTIATE(T)                                                                  \

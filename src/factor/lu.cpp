@@ -10,6 +10,19 @@
 namespace gridlu {
 namespace {
 
+// Adds the lifetime of the scope to a phase's total.
+class phase_clock {
+public:
+  explicit phase_clock(double& total) : total_(total), start_(comm::wtime()) {}
+  ~phase_clock() { total_ += comm::wtime() - start_; }
+  phase_clock(const phase_clock&) = delete;
+  phase_clock& operator=(const phase_clock&) = delete;
+
+private:
+  double& total_;
+  double start_;
+};
+
 using blas::diagonal;
 using blas::op;
 using blas::triangle;
@@ -20,7 +33,7 @@ using blas::triangle;
 // columns. pivots[t] gets the pivot row of column j0 + t; a zero pivot sets zero_column.
 template <scalar T>
 void factor_panel(dist_matrix<T>& a, index_t j0, index_t jb, index_t lc0, std::span<index_t> pivots,
-                  index_t& zero_column) {
+                  index_t& zero_column, double& search_seconds) {
   const auto& rows = a.layout().rows;
   const auto& col = a.grid().col();
   const int me = a.grid().myrow();
@@ -40,7 +53,10 @@ void factor_panel(dist_matrix<T>& a, index_t j0, index_t jb, index_t lc0, std::s
       const double m = static_cast<double>(abs1(column[li]));
       if (m > mine.magnitude) mine = {m, rows.global(me, li)};
     }
-    const auto found = comm::best(col, mine);
+    const auto found = [&] {
+      const phase_clock clock(search_seconds);
+      return comm::best(col, mine);
+    }();
     const index_t r = found.row < 0 ? j : found.row;  // a column of NaNs keeps its row
     pivots[t] = r;
 
@@ -88,6 +104,7 @@ lu_result factor(dist_matrix<T>& a, lu_result state, const lu_options& options) 
     throw error(exit_code::internal, "factor: columns_done out of range");
 
   lu_result result = std::move(state);
+  result.phases = {};
   result.pivots.resize(static_cast<std::size_t>(n));
   std::vector<T> panel, urow;
   std::vector<index_t> step;  // the panel's pivots, then its first zero-pivot column
@@ -104,33 +121,47 @@ lu_result factor(dist_matrix<T>& a, lu_result state, const lu_options& options) 
     panel.resize(static_cast<std::size_t>(mp * jb));
     step.assign(static_cast<std::size_t>(jb + 1), -1);
     if (mycol == pc) {
-      factor_panel(a, j0, jb, lc0, std::span(step).first(jb), step[jb]);
+      const phase_clock clock(result.phases.panel);
+      factor_panel(a, j0, jb, lc0, std::span(step).first(jb), step[jb], result.phases.pivot_search);
       for (index_t c = 0; c < jb; ++c) std::copy_n(a.at(lr0, lc0 + c), mp, panel.data() + c * mp);
     }
-    comm::broadcast(grid.row(), panel.data(), mp * jb, pc);
-    comm::broadcast(grid.row(), step.data(), jb + 1, pc);
+    {
+      const phase_clock clock(result.phases.broadcast);
+      comm::broadcast(grid.row(), panel.data(), mp * jb, pc);
+      comm::broadcast(grid.row(), step.data(), jb + 1, pc);
+    }
     std::copy_n(step.begin(), jb, result.pivots.begin() + j0);
     if (result.first_zero_pivot < 0) result.first_zero_pivot = step[jb];
 
     // The panel's interchanges on the columns left and right of it.
     const detail::column_range outside[] = {{0, mycol == pc ? lc0 : nloc},
                                             {mycol == pc ? lc0 + jb : nloc, nloc}};
-    detail::interchange_rows(a, j0, std::span(step).first(jb), outside);
+    {
+      const phase_clock clock(result.phases.interchange);
+      detail::interchange_rows(a, j0, std::span(step).first(jb), outside);
+    }
 
     // Block row of U: solved on its process row, then sent down every process column.
     const index_t lc1 = cols.local_begin(mycol, j0 + jb), nr = nloc - lc1;
     urow.resize(static_cast<std::size_t>(jb * nr));
     if (myrow == pr) {
+      const phase_clock clock(result.phases.trsm);
       blas::trsm_left(triangle::lower, diagonal::unit, jb, nr, T(1), panel.data(), mp,
                       a.at(lr0, lc1), ld);
       for (index_t c = 0; c < nr; ++c) std::copy_n(a.at(lr0, lc1 + c), jb, urow.data() + c * jb);
     }
-    comm::broadcast(grid.col(), urow.data(), jb * nr, pr);
+    {
+      const phase_clock clock(result.phases.broadcast);
+      comm::broadcast(grid.col(), urow.data(), jb * nr, pr);
+    }
 
     // Trailing update: one GEMM per rank.
     const index_t lr1 = rows.local_begin(myrow, j0 + jb);
-    blas::gemm(op::none, op::none, mloc - lr1, nr, jb, T(-1), panel.data() + (lr1 - lr0), mp,
-               urow.data(), jb, T(1), a.at(lr1, lc1), ld);
+    {
+      const phase_clock clock(result.phases.gemm);
+      blas::gemm(op::none, op::none, mloc - lr1, nr, jb, T(-1), panel.data() + (lr1 - lr0), mp,
+                 urow.data(), jb, T(1), a.at(lr1, lc1), ld);
+    }
     result.columns_done = j0 + jb;
     if (options.after_step && options.after_step(result)) break;
   }

@@ -42,11 +42,16 @@ template <scalar T>
 bench_result bench_typed(const process_grid& grid, const bench_options& o) {
   bench_result r;
   dist_matrix<T> a(grid, o.n, o.n, o.block);
+  std::vector<lu_phases> phases;
   for (int rep = 0; rep < o.repeat; ++rep) {
     a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
-    r.factor_seconds.push_back(timed(grid, [&] { factor(a); }));
+    r.factor_seconds.push_back(timed(grid, [&] { phases.push_back(factor(a).phases); }));
   }
   r.factor_median = median(r.factor_seconds);
+  const auto at_median =
+      std::find(r.factor_seconds.begin(), r.factor_seconds.end(), r.factor_median);
+  r.phases = phases[at_median == r.factor_seconds.end() ? 0 : at_median - r.factor_seconds.begin()];
+  comm::max(grid.all(), &r.phases.panel, sizeof(lu_phases) / sizeof(double));
   r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_median * 1e-9;
   r.gemm_order = std::min<index_t>(o.n, 2048);
   r.gemm_gflops = gemm_rate<T>(grid, r.gemm_order);

@@ -8,6 +8,7 @@
 #include <vector>
 
 #include "gridlu/grid.hpp"
+#include "gridlu/lu.hpp"
 
 namespace gridlu::workflows {
 
@@ -27,6 +28,7 @@ struct bench_result {
   double factor_median = 0;
   double gflops = 0;       // factorization, from the median time
   double gemm_gflops = 0;  // the same ranks running GEMM at once, median of three
+  lu_phases phases;        // of the median run: the largest over the ranks, per phase
   index_t gemm_order = 0;
 };
 
