@@ -1,17 +1,13 @@
 // The `gridlu` command: subcommands, options, what rank 0 prints, exit codes.
-#include <CLI/CLI.hpp>
-#include <nlohmann/json.hpp>
-
-#include <cstdio>
-#include <fstream>
-#include <iostream>
-#include <optional>
-
 #include <unistd.h>
 
+#include <CLI/CLI.hpp>
+#include <cstdio>
 #include <filesystem>
+#include <fstream>
 #include <map>
 #include <memory>
+#include <nlohmann/json.hpp>
 
 #include "gridlu/checkpoint.hpp"
 #include "gridlu/io.hpp"
