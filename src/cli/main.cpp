@@ -141,8 +141,8 @@ int run_demo(const workflows::demo_options& o, const common_options& c) {
                 r.factor_seconds, r.gflops);
     std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds, r.check_seconds);
     if (r.first_zero_pivot >= 0)
-      std::printf("  exactly zero pivot in column %lld (1-based)\n",
-                  static_cast<long long>(r.first_zero_pivot + 1));
+      std::printf("  exactly zero pivot in column %lld (0-based, as everywhere in gridlu)\n",
+                  static_cast<long long>(r.first_zero_pivot));
     std::printf("  backward error, worst of %zu: %.2e (accepted up to 10 n eps = %.2e): %s\n",
                 r.backward_errors.size(), worst, r.threshold, good ? "GOOD" : "POOR");
     auto j = grid_json(grid);

@@ -71,9 +71,11 @@ void dist_matrix<T>::scatter(const std::vector<T>& whole, int root) {
   const auto& all = grid_->all();
   std::vector<index_t> counts;
   std::vector<T> packed;
-  if (all.rank() == root) {
-    if (static_cast<index_t>(whole.size()) != rows() * cols())
+  comm::together(all, [&] {
+    if (all.rank() == root && static_cast<index_t>(whole.size()) != rows() * cols())
       throw error(exit_code::internal, "scatter: array size does not match the matrix");
+  });
+  if (all.rank() == root) {
     packed.resize(whole.size());
     index_t offset = 0;
     for (int r = 0; r < all.size(); ++r) {

@@ -14,7 +14,7 @@ namespace {
 
 void check_sizes(index_t n, index_t block) {
   if (n < 1) throw error(exit_code::usage, "the order N must be at least 1");
-  if (block < 1) throw error(exit_code::usage, "the block size must be at least 1");
+  require_block(block);
 }
 
 // Every rank multiplies square matrices at once: the rate the same cores reach on the
@@ -104,7 +104,7 @@ bench_result bench(const process_grid& grid, const bench_options& o) {
 }
 
 read_bench_result bench_read(const process_grid& grid, const read_bench_options& o) {
-  check_sizes(1, o.block);
+  require_block(o.block);
   const io::file f(grid, o.path, io::file::mode::read);
   const auto shape = f.shape(o.dataset);
   if (shape.dims.size() != 2 || !shape.usable)

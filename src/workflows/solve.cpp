@@ -382,7 +382,7 @@ solve_result solve_inputs(const process_grid& grid, const solve_options& o, cons
 }  // namespace
 
 solve_result solve_file(const process_grid& grid, const solve_options& o) {
-  if (o.block < 1) throw error(exit_code::usage, "the block size must be at least 1");
+  require_block(o.block);
   if (!o.factors.empty() && !o.save_factors.empty())
     throw error(exit_code::usage, "--factors and --save-factors do not go together");
   if (!o.factors.empty() && !o.checkpoint_dir.empty())
@@ -396,7 +396,7 @@ solve_result solve_file(const process_grid& grid, const solve_options& o) {
 }
 
 solve_result resume_dir(const process_grid& grid, const resume_options& ro) {
-  if (ro.block < 0) throw error(exit_code::usage, "the block size must be at least 1");
+  if (ro.block != 0) require_block(ro.block);  // 0: the checkpoint's own
   if (const auto output = checkpoint::completed(ro.dir)) {
     solve_result r;
     r.already_complete = true;

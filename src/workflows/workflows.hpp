@@ -15,6 +15,10 @@ namespace gridlu::workflows {
 // Default block size; see DEVELOPERS.md for the measurements behind it.
 inline constexpr index_t default_block = 64;
 
+inline void require_block(index_t block) {
+  if (block < 1) throw error(exit_code::usage, "the block size must be at least 1");
+}
+
 struct bench_options {
   index_t n = 4096;
   index_t block = default_block;
