@@ -64,6 +64,13 @@ public:
   // Attributes of the file ("/") or of a dataset; the same value on every rank.
   void set_attribute(const std::string& object, const std::string& key, const attribute& value);
   std::optional<attribute> get_attribute(const std::string& object, const std::string& key) const;
+  // The attribute if it exists and holds a V.
+  template <class V>
+  std::optional<V> get_attribute_as(const std::string& object, const std::string& key) const {
+    const auto a = get_attribute(object, key);
+    if (const V* v = a ? std::get_if<V>(&*a) : nullptr) return *v;
+    return std::nullopt;
+  }
 
   // Pushes everything written so far to storage (MPI_File_sync underneath).
   void flush();

@@ -44,9 +44,9 @@ struct damaged : error {
 
 template <class V>
 V need(const io::file& f, const std::string& key, const std::string& path) {
-  const auto a = f.get_attribute("/", key);
-  if (!a || !std::holds_alternative<V>(*a)) throw damaged(path + " lacks the attribute " + key);
-  return std::get<V>(*a);
+  const auto v = f.get_attribute_as<V>("/", key);
+  if (!v) throw damaged(path + " lacks the attribute " + key);
+  return *v;
 }
 
 std::uint64_t need_hex(const io::file& f, const std::string& key, const std::string& path) {
@@ -156,9 +156,8 @@ header load_header(const process_grid& grid, const std::string& dir) {
   comm::together(grid.all(), [&] { present = fs::exists(path); });
   if (!present) throw error(exit_code::input, "no checkpoint in " + dir);
   const io::file f(grid, path, io::file::mode::read);
-  const auto kind_value = f.get_attribute("/", "gridlu_kind");
-  const auto* k = kind_value ? std::get_if<std::string>(&*kind_value) : nullptr;
-  if (!k || *k != kind) throw error(exit_code::input, path + " is not a gridlu checkpoint");
+  if (f.get_attribute_as<std::string>("/", "gridlu_kind") != kind)
+    throw error(exit_code::input, path + " is not a gridlu checkpoint");
   header h;
   auto& w = h.what;
   w.type = need<std::string>(f, "type", path);

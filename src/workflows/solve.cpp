@@ -35,16 +35,10 @@ void refuse_nonfinite(const dist_matrix<T>& m, const std::string& dataset, const
 }
 
 std::string text_attribute(const io::file& f, const std::string& key) {
-  const auto a = f.get_attribute("/", key);
-  const auto* s = a ? std::get_if<std::string>(&*a) : nullptr;
-  return s ? *s : std::string();
+  return f.get_attribute_as<std::string>("/", key).value_or("");
 }
-double number_attribute(const io::file& f, const std::string& key) {
-  const auto a = f.get_attribute("/", key);
-  if (!a) return -1;
-  if (const auto* i = std::get_if<std::int64_t>(&*a)) return static_cast<double>(*i);
-  if (const auto* d = std::get_if<double>(&*a)) return *d;
-  return -1;
+std::int64_t integer_attribute(const io::file& f, const std::string& key) {
+  return f.get_attribute_as<std::int64_t>("/", key).value_or(-1);
 }
 
 // Shape checks of a dataset that must hold numbers gridlu can solve with.
@@ -226,12 +220,11 @@ solve_result solve_typed(const process_grid& grid, const solve_options& o, const
     saved.emplace(grid, o.factors, io::file::mode::read);
     if (text_attribute(*saved, "gridlu_kind") != "factors")
       throw error(exit_code::input, o.factors + " is not a gridlu factors file");
-    if (number_attribute(*saved, "n") != static_cast<double>(n) ||
-        text_attribute(*saved, "type") != r.type)
+    if (integer_attribute(*saved, "n") != n || text_attribute(*saved, "type") != r.type)
       throw error(exit_code::input, "the factors in " + o.factors + " are not of a " +
                                         std::to_string(n) + " x " + std::to_string(n) + " " +
                                         r.type + " matrix like " + o.input);
-    if (number_attribute(*saved, "source_size") != static_cast<double>(source.size))
+    if (integer_attribute(*saved, "source_size") != source.size)
       throw error(exit_code::input, "the factors in " + o.factors + " were made from another A (" +
                                         o.input + " has a different size)");
     r.refactored = false;
