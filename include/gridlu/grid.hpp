@@ -103,12 +103,44 @@ void max(const communicator& c, T* data, index_t count);
 void bit_xor(const communicator& c, std::uint64_t* data, index_t count);
 
 // Pivot candidate: largest magnitude wins, equal magnitudes go to the smaller row,
-// which is how LAPACK's first-maximum search breaks ties.
+// which is how LAPACK's first-maximum search breaks ties. No candidate: row -1.
 struct candidate {
   double magnitude;
   index_t row;
 };
-candidate best(const communicator& c, candidate mine);
+
+// One reduction per column of a panel: every rank brings its best candidate with that
+// row's `width` entries in pivot_row, and the rank holding the diagonal row brings it in
+// diagonal_row. Every rank returns with the winner, its entries in pivot_row, and the
+// diagonal row's entries in diagonal_row, so both rows of the interchange travel in the
+// message that finds the pivot.
+template <class T>
+candidate best_with_rows(const communicator& c, candidate mine, T* pivot_row, T* diagonal_row,
+                         bool holds_diagonal, index_t width);
+
+// A non-blocking operation in flight. Destruction waits for it: its buffers must
+// outlive it.
+class request {
+public:
+  request() = default;
+  explicit request(MPI_Request r) : r_(r) {}
+  ~request();
+  request(request&& other) noexcept;
+  request& operator=(request&& other) noexcept;
+  request(const request&) = delete;
+  request& operator=(const request&) = delete;
+
+  bool test();  // lets MPI progress it; true once complete
+  void wait();
+
+private:
+  MPI_Request r_ = MPI_REQUEST_NULL;
+};
+
+// Non-blocking broadcast; every rank of c starts it, in the same order as c's other
+// collectives.
+template <class T>
+request start_broadcast(const communicator& c, T* data, index_t count, int root);
 
 // All-to-all with per-rank element counts; displacements follow the rank order.
 template <class T>

@@ -10,15 +10,15 @@
 
 namespace gridlu {
 
-// Seconds one rank spent in each part of the factorization; the broadcasts and the pivot
-// search include the time spent waiting for the other ranks.
+// Seconds one rank spent in each part of the factorization.
 struct lu_phases {
   double panel = 0;         // panel factorization, pivot search included
-  double pivot_search = 0;  // the reductions that find the pivots
+  double pivot_search = 0;  // the reductions that find the pivots, waits for peers included
   double interchange = 0;   // row interchanges outside the panel
-  double broadcast = 0;     // panel along the rows, U block row down the columns
-  double trsm = 0;          // U block row
-  double gemm = 0;          // trailing update
+  double broadcast = 0;     // U block rows down the process columns, waits included
+  double trsm = 0;          // U block rows
+  double gemm = 0;          // trailing and look-ahead updates
+  double wait = 0;          // waiting for a panel from along the process row
 };
 
 struct lu_result {
@@ -30,14 +30,28 @@ struct lu_result {
   index_t first_zero_pivot = -1;
   // Columns eliminated so far: n when complete; pivots beyond it are not yet chosen.
   index_t columns_done = 0;
+  // True when no panel beyond columns_done has been factored ahead: the matrix is then
+  // exactly the working matrix after columns_done columns, a state that can be saved or
+  // continued on another grid. Always true when factor() returns.
+  bool settled = true;
   lu_phases phases;  // of this call, on this rank
 };
 
+// What the factorization does after a block step.
+enum class step_request {
+  go_on,
+  settle,  // factor nothing more ahead until the state is settled (within lookahead steps)
+  stop,    // settle, then return
+};
+
 struct lu_options {
-  // Called on every rank after each block step with the state so far (a holds the
-  // matching working matrix); returning true stops the factorization there. Every rank
-  // must return the same.
-  std::function<bool(const lu_result&)> after_step;
+  // Panels factored ahead of the trailing update (0: none). The owners of the next
+  // panels update and factor them first and send them while the rest of the matrix is
+  // updated, which takes the panel and its broadcast off the critical path.
+  int lookahead = 1;
+  // Called on every rank after each block step with the state so far; every rank must
+  // return the same.
+  std::function<step_request(const lu_result&)> after_step;
 };
 
 // Overwrites a with L (unit lower, below the diagonal) and U, in LAPACK's convention:

@@ -37,6 +37,13 @@ void add_common(CLI::App* cmd, common_options& o) {
   cmd->add_option("--report", o.report, "also write the figures as JSON to this file");
 }
 
+void add_lookahead(CLI::App* cmd, int& depth) {
+  cmd->add_option("--lookahead", depth,
+                  "panels factored and sent ahead of the trailing update (0: none)")
+      ->capture_default_str()
+      ->check(CLI::NonNegativeNumber);
+}
+
 process_grid make_grid(const common_options& o) {
   int ranks = 0;
   MPI_Comm_size(MPI_COMM_WORLD, &ranks);
@@ -62,6 +69,20 @@ nlohmann::json grid_json(const process_grid& g) {
             {"mpi", comm::library_version()},
             {"blas", blas::library_version()},
             {"hdf5", io::library_version()}}}};
+}
+
+// Where a factorization's time went, on the slowest rank for each phase.
+nlohmann::json phases_json(const lu_phases& p) {
+  return {{"panel", p.panel},           {"pivot_search", p.pivot_search},
+          {"interchange", p.interchange}, {"broadcast", p.broadcast},
+          {"trsm", p.trsm},             {"gemm", p.gemm},
+          {"wait", p.wait}};
+}
+void print_phases(const lu_phases& p) {
+  std::printf(
+      "  phases (s, slowest rank): panel %.3f (pivot search %.3f) | interchanges %.3f |"
+      " broadcasts %.3f | trsm %.3f | gemm %.3f | waiting for panels %.3f\n",
+      p.panel, p.pivot_search, p.interchange, p.broadcast, p.trsm, p.gemm, p.wait);
 }
 
 int run_read_bench(const workflows::read_bench_options& o, const common_options& c) {
@@ -92,9 +113,10 @@ int run_bench(const workflows::bench_options& o, const common_options& c) {
   const auto r = workflows::bench(grid, o);
   if (grid.rank() != 0) return 0;
   const double ratio = r.gflops / r.gemm_gflops;
-  std::printf("gridlu bench: LU of a random %s matrix, n = %lld, block %lld, grid %dx%d\n",
-              o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.block),
-              grid.prows(), grid.pcols());
+  std::printf(
+      "gridlu bench: LU of a random %s matrix, n = %lld, block %lld, look-ahead %d, grid %dx%d\n",
+      o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.block), o.lookahead,
+      grid.prows(), grid.pcols());
   std::printf("  factor time   %10.3f s   (median of %zu)\n", r.factor_median,
               r.factor_seconds.size());
   std::printf("  factor rate   %10.2f GFLOP/s\n", r.gflops);
@@ -102,27 +124,19 @@ int run_bench(const workflows::bench_options& o, const common_options& c) {
               r.gemm_gflops, static_cast<long long>(r.gemm_order), grid.size());
   std::printf("  LU / GEMM     %10.3f\n", ratio);
   const auto& ph = r.phases;
-  std::printf(
-      "  phases (s, slowest rank): panel %.3f (pivot search %.3f) | interchanges %.3f |"
-      " broadcasts %.3f | trsm %.3f | gemm %.3f\n",
-      ph.panel, ph.pivot_search, ph.interchange, ph.broadcast, ph.trsm, ph.gemm);
+  print_phases(ph);
   auto j = grid_json(grid);
   j.update({{"command", "bench"},
             {"n", o.n},
             {"block", o.block},
+            {"lookahead", o.lookahead},
             {"type", o.type},
             {"times", {{"factor", r.factor_median}, {"factor_runs", r.factor_seconds}}},
             {"gflops", r.gflops},
             {"gemm_gflops", r.gemm_gflops},
             {"gemm_order", r.gemm_order},
             {"ratio_to_gemm", ratio},
-            {"phases",
-             {{"panel", ph.panel},
-              {"pivot_search", ph.pivot_search},
-              {"interchange", ph.interchange},
-              {"broadcast", ph.broadcast},
-              {"trsm", ph.trsm},
-              {"gemm", ph.gemm}}}});
+            {"phases", phases_json(ph)}});
   write_report(c.report, j);
   return 0;
 }
@@ -240,7 +254,8 @@ int report_solve(const process_grid& grid, const workflows::solve_result& r,
                {{"read", r.read_seconds},
                 {"factor", r.factor_seconds},
                 {"write", r.write_seconds},
-                {"total", r.total_seconds}}}});
+                {"total", r.total_seconds}}},
+              {"phases", phases_json(r.phases)}});
     write_report(c.report, j);
     return static_cast<int>(exit_code::stopped);
   }
@@ -275,6 +290,7 @@ int report_solve(const process_grid& grid, const workflows::solve_result& r,
               {"write", r.write_seconds},
               {"total", r.total_seconds}}},
             {"gflops", r.gflops},
+            {"phases", phases_json(r.phases)},
             {"backward_error", worst},
             {"backward_errors", r.backward_errors},
             {"threshold", r.threshold},
@@ -411,6 +427,7 @@ int main(int argc, char** argv) {
       "time the LU of a generated matrix in memory against the GEMM rate of the same ranks");
   bench_cmd->add_option("--n", bench.n, "order of the matrix")->capture_default_str();
   bench_cmd->add_option("--block", bench.block, "block size nb")->capture_default_str();
+  add_lookahead(bench_cmd, bench.lookahead);
   bench_cmd->add_option("--type", bench.type, "float32, float64, complex64 or complex128")
       ->capture_default_str();
   bench_cmd->add_option("--seed", bench.seed, "seed of the generated matrix")
@@ -435,6 +452,7 @@ int main(int argc, char** argv) {
   demo_cmd->add_option("--n", demo.n, "number of unknowns")->capture_default_str();
   demo_cmd->add_option("--rhs", demo.nrhs, "number of right-hand sides")->capture_default_str();
   demo_cmd->add_option("--block", demo.block, "block size nb")->capture_default_str();
+  add_lookahead(demo_cmd, demo.lookahead);
   demo_cmd->add_option("--type", demo.type, "float32, float64, complex64 or complex128")
       ->capture_default_str();
   demo_cmd->add_option("--seed", demo.seed, "seed of the generated system")->capture_default_str();
@@ -452,6 +470,7 @@ int main(int argc, char** argv) {
   solve_cmd->add_option("--rhs-dataset", so.rhs_dataset, "name of B")->capture_default_str();
   solve_cmd->add_option("--rhs-file", so.rhs_file, "read B from this file instead of INPUT");
   solve_cmd->add_option("--block", so.block, "block size nb")->capture_default_str();
+  add_lookahead(solve_cmd, so.lookahead);
   solve_cmd->add_flag("--column-major", so.column_major,
                       "A's dataset holds the transpose (element [i][j] is A(j, i)), as "
                       "column-major writers store it");
@@ -507,6 +526,7 @@ int main(int argc, char** argv) {
   resume_cmd->add_option(
       "--block", resume.options.block,
       "block size nb (default: the one the checkpoint was made with; any works)");
+  add_lookahead(resume_cmd, resume.options.lookahead);
   resume_cmd->add_option("--out", resume.options.output,
                          "write X here instead of the recorded OUTPUT");
   resume_cmd->add_flag("--force", resume.options.force, "replace OUTPUT if it exists");

@@ -6,6 +6,7 @@
 #include <climits>
 #include <complex>
 #include <cstdint>
+#include <cstring>
 #include <new>
 
 namespace gridlu {
@@ -166,14 +167,108 @@ void bit_xor(const communicator& c, std::uint64_t* data, index_t count) {
         "MPI_Allreduce");
 }
 
-candidate best(const communicator& c, candidate mine) {
-  // MPI_MAXLOC keeps the smallest index among equal values, as the pivot rule needs.
-  struct {
-    double value;
-    int index;
-  } in{mine.magnitude, mine.row < 0 ? INT_MAX : to_int(mine.row)}, out{};
-  check(MPI_Allreduce(&in, &out, 1, MPI_DOUBLE_INT, MPI_MAXLOC, c.get()), "MPI_Allreduce");
-  return {out.value, out.index == INT_MAX ? -1 : out.index};
+namespace {
+
+// The pivot message: a header, then the candidate's row, then the diagonal row.
+struct pivot_header {
+  double magnitude;
+  index_t row;
+  int holds_diagonal;
+};
+constexpr std::size_t row_offset = (sizeof(pivot_header) + 15) / 16 * 16;
+
+template <class T>
+void combine_pivots(void* in, void* inout, int* len, MPI_Datatype* type) {
+  int bytes = 0;
+  MPI_Type_size(*type, &bytes);
+  const std::size_t width = (static_cast<std::size_t>(bytes) - row_offset) / (2 * sizeof(T));
+  auto* from = static_cast<std::byte*>(in);
+  auto* to = static_cast<std::byte*>(inout);
+  for (int e = 0; e < *len; ++e, from += bytes, to += bytes) {
+    pivot_header f, t;
+    std::memcpy(&f, from, sizeof f);
+    std::memcpy(&t, to, sizeof t);
+    const bool wins = f.row >= 0 && (t.row < 0 || f.magnitude > t.magnitude ||
+                                     (f.magnitude == t.magnitude && f.row < t.row));
+    if (wins) {
+      t.magnitude = f.magnitude;
+      t.row = f.row;
+      std::memcpy(to + row_offset, from + row_offset, width * sizeof(T));
+    }
+    if (f.holds_diagonal) {
+      t.holds_diagonal = 1;
+      std::memcpy(to + row_offset + width * sizeof(T), from + row_offset + width * sizeof(T),
+                  width * sizeof(T));
+    }
+    std::memcpy(to, &t, sizeof t);
+  }
+}
+
+// One committed type per message size and one operation per scalar type, made on first
+// use and kept for the rest of the run (MPI_Finalize reclaims them).
+template <class T>
+std::pair<MPI_Datatype, MPI_Op> pivot_message(int bytes) {
+  static std::vector<std::pair<int, MPI_Datatype>> types;
+  static MPI_Op op = [] {
+    MPI_Op o;
+    check(MPI_Op_create(&combine_pivots<T>, 1, &o), "MPI_Op_create");
+    return o;
+  }();
+  for (const auto& [b, t] : types)
+    if (b == bytes) return {t, op};
+  MPI_Datatype t;
+  check(MPI_Type_contiguous(bytes, MPI_BYTE, &t), "MPI_Type_contiguous");
+  check(MPI_Type_commit(&t), "MPI_Type_commit");
+  types.emplace_back(bytes, t);
+  return {t, op};
+}
+
+}  // namespace
+
+template <class T>
+candidate best_with_rows(const communicator& c, candidate mine, T* pivot_row, T* diagonal_row,
+                         bool holds_diagonal, index_t width) {
+  if (c.size() == 1) return mine;
+  const std::size_t row_bytes = static_cast<std::size_t>(width) * sizeof(T);
+  const int bytes = to_int(static_cast<index_t>(row_offset + 2 * row_bytes));
+  std::vector<std::byte> message(static_cast<std::size_t>(bytes));
+  const pivot_header h{mine.magnitude, mine.row, holds_diagonal ? 1 : 0};
+  std::memcpy(message.data(), &h, sizeof h);
+  std::memcpy(message.data() + row_offset, pivot_row, row_bytes);
+  if (holds_diagonal) std::memcpy(message.data() + row_offset + row_bytes, diagonal_row, row_bytes);
+  const auto [type, op] = pivot_message<T>(bytes);
+  check(MPI_Allreduce(MPI_IN_PLACE, message.data(), 1, type, op, c.get()), "MPI_Allreduce");
+  pivot_header out;
+  std::memcpy(&out, message.data(), sizeof out);
+  std::memcpy(pivot_row, message.data() + row_offset, row_bytes);
+  std::memcpy(diagonal_row, message.data() + row_offset + row_bytes, row_bytes);
+  return {out.magnitude, out.row};
+}
+
+request::~request() {
+  if (r_ != MPI_REQUEST_NULL) MPI_Wait(&r_, MPI_STATUS_IGNORE);
+}
+request::request(request&& other) noexcept : r_(other.r_) { other.r_ = MPI_REQUEST_NULL; }
+request& request::operator=(request&& other) noexcept {
+  std::swap(r_, other.r_);
+  return *this;
+}
+bool request::test() {
+  if (r_ == MPI_REQUEST_NULL) return true;
+  int done = 0;
+  check(MPI_Test(&r_, &done, MPI_STATUS_IGNORE), "MPI_Test");
+  return done != 0;
+}
+void request::wait() {
+  if (r_ != MPI_REQUEST_NULL) check(MPI_Wait(&r_, MPI_STATUS_IGNORE), "MPI_Wait");
+}
+
+template <class T>
+request start_broadcast(const communicator& c, T* data, index_t count, int root) {
+  if (c.size() == 1) return {};
+  MPI_Request r;
+  check(MPI_Ibcast(data, to_int(count), mpi_type<T>(), root, c.get(), &r), "MPI_Ibcast");
+  return request(r);
 }
 
 template <class T>
@@ -246,10 +341,19 @@ void agree(const communicator& c, std::exception_ptr mine) {
   template void gather<T>(const communicator&, const T*, index_t, T*, const std::vector<index_t>&, \
                           int);                                                                    \
   template void scatter<T>(const communicator&, const T*, const std::vector<index_t>&, T*,         \
-                           index_t, int);
+                           index_t, int);                                                          \
+  template request start_broadcast<T>(const communicator&, T*, index_t, int);
 GRIDLU_COMM_TYPES(GRIDLU_COMM_INSTANTIATE)
 #undef GRIDLU_COMM_INSTANTIATE
 #undef GRIDLU_COMM_TYPES
+
+#define GRIDLU_PIVOT_INSTANTIATE(T) \
+  template candidate best_with_rows<T>(const communicator&, candidate, T*, T*, bool, index_t);
+GRIDLU_PIVOT_INSTANTIATE(float)
+GRIDLU_PIVOT_INSTANTIATE(double)
+GRIDLU_PIVOT_INSTANTIATE(std::complex<float>)
+GRIDLU_PIVOT_INSTANTIATE(std::complex<double>)
+#undef GRIDLU_PIVOT_INSTANTIATE
 
 template void sum<float>(const communicator&, float*, index_t);
 template void sum<double>(const communicator&, double*, index_t);

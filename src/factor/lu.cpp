@@ -1,6 +1,9 @@
-// Right-looking blocked LU with partial pivoting on the block-cyclic grid.
+// Right-looking blocked LU with partial pivoting on the block-cyclic grid, with panels
+// factored and sent ahead of the trailing update.
 #include "gridlu/lu.hpp"
 
+#include <algorithm>
+#include <deque>
 #include <limits>
 
 #include "factor/interchange.hpp"
@@ -26,145 +29,306 @@ private:
 using blas::diagonal;
 using blas::op;
 using blas::triangle;
+using detail::column_range;
 
-// Factors the panel of global columns [j0, j0 + jb) in place on the process column that
-// owns it: per column one reduction finds the pivot, one broadcast hands the pivot row
-// to the column, then interchange, scaling and a rank-1 update of the panel's remaining
-// columns. pivots[t] gets the pivot row of column j0 + t; a zero pivot sets zero_column.
+// Below this many columns the panel recursion goes column by column.
+constexpr index_t narrow_width = 16;
+// The trailing update runs in chunks of this many columns and lets MPI move the panels
+// in flight in between: a non-blocking message progresses only inside MPI calls.
+constexpr index_t update_chunk = 512;
+
+// Recursive factorization of the panel of global columns [j0, j0 + jb) on the process
+// column that owns it (local columns from lc0): the left half, its interchanges on the
+// right half, a triangular solve and one GEMM, then the right half and its interchanges
+// on the left half. Most of the work is BLAS-3; only narrow column groups go column by
+// column, with one reduction per column that also carries the two rows to interchange.
 template <scalar T>
-void factor_panel(dist_matrix<T>& a, index_t j0, index_t jb, index_t lc0, std::span<index_t> pivots,
-                  index_t& zero_column, double& search_seconds) {
-  const auto& rows = a.layout().rows;
-  const auto& col = a.grid().col();
-  const int me = a.grid().myrow();
-  const index_t mloc = a.local_rows(), ld = a.ld();
-  std::vector<T> pivot_row(jb), own_row(jb);
-  const auto copy_row = [&](index_t li, T* to) {
-    for (index_t c = 0; c < jb; ++c) to[c] = *a.at(li, lc0 + c);
-  };
-  const auto store_row = [&](index_t li, const T* from) {
-    for (index_t c = 0; c < jb; ++c) *a.at(li, lc0 + c) = from[c];
-  };
-  for (index_t t = 0; t < jb; ++t) {
-    const index_t j = j0 + t;
-    const T* column = a.at(0, lc0 + t);
-    comm::candidate mine{-1.0, -1};
-    for (index_t li = rows.local_begin(me, j); li < mloc; ++li) {
-      const double m = static_cast<double>(abs1(column[li]));
-      if (m > mine.magnitude) mine = {m, rows.global(me, li)};
-    }
-    const auto found = [&] {
-      const phase_clock clock(search_seconds);
-      return comm::best(col, mine);
-    }();
-    const index_t r = found.row < 0 ? j : found.row;  // a column of NaNs keeps its row
-    pivots[t] = r;
+class panel_factorization {
+public:
+  panel_factorization(dist_matrix<T>& a, index_t j0, index_t lc0, std::span<index_t> pivots,
+                      double& search_seconds)
+      : a_(a), j0_(j0), lc0_(lc0), pivots_(pivots), search_seconds_(search_seconds) {}
 
-    const int owner_j = rows.owner(j), owner_r = rows.owner(r);
-    if (me == owner_r) copy_row(rows.local(r), pivot_row.data());
-    comm::broadcast(col, pivot_row.data(), jb, owner_r);
-    if (r != j) {
-      if (me == owner_j) {
-        copy_row(rows.local(j), own_row.data());
-        store_row(rows.local(j), pivot_row.data());
-      }
-      if (owner_j != owner_r) {
-        if (me == owner_j) comm::send(col, own_row.data(), jb, owner_r);
-        if (me == owner_r) comm::receive(col, own_row.data(), jb, owner_j);
-      }
-      if (me == owner_r) store_row(rows.local(r), own_row.data());
-    }
-
-    const T pivot = pivot_row[t];
-    const index_t below = rows.local_begin(me, j + 1), count = mloc - below;
-    T* l = a.at(below, lc0 + t);
-    if (pivot == T(0)) {
-      if (zero_column < 0) zero_column = j;
-    } else if (std::abs(pivot) >= std::numeric_limits<real_t<T>>::min()) {
-      blas::scale(count, T(1) / pivot, l);
-    } else {  // 1/pivot would overflow
-      for (index_t i = 0; i < count; ++i) l[i] /= pivot;
-    }
-    blas::rank1(count, jb - t - 1, T(-1), l, pivot_row.data() + t + 1, a.at(below, lc0 + t + 1),
-                ld);
+  // Returns the first column with an exactly zero pivot, or -1.
+  index_t run() {
+    columns(j0_, static_cast<index_t>(pivots_.size()));
+    return zero_column_;
   }
-}
+
+private:
+  index_t lc(index_t j) const { return lc0_ + (j - j0_); }
+  std::span<const index_t> pivots_of(index_t j, index_t w) const {
+    return pivots_.subspan(static_cast<std::size_t>(j - j0_), static_cast<std::size_t>(w));
+  }
+
+  void columns(index_t j, index_t w) {
+    if (w <= narrow_width) return narrow(j, w);
+    const index_t h = w / 2;
+    columns(j, h);
+    const column_range left{lc(j), lc(j + h)}, right{lc(j + h), lc(j + w)};
+    detail::interchange_rows(a_, j, pivots_of(j, h), std::span(&right, 1));
+
+    // U12 = inv(L11) A12 on the process row holding rows [j, j + h) (all in one block),
+    // sent down the process column; then A22 -= L21 U12.
+    const auto& rows = a_.layout().rows;
+    const auto& col = a_.grid().col();
+    const int me = a_.grid().myrow(), pr = rows.owner(j);
+    const index_t ld = a_.ld(), lr = rows.local_begin(me, j);
+    const T* u = a_.at(lr, right.begin);
+    index_t ldu = ld;
+    if (me == pr)
+      blas::trsm_left(triangle::lower, diagonal::unit, h, w - h, T(1), a_.at(lr, left.begin), ld,
+                      a_.at(lr, right.begin), ld);
+    if (col.size() > 1) {
+      work_.resize(static_cast<std::size_t>(h * (w - h)));
+      if (me == pr)
+        for (index_t c = 0; c < w - h; ++c) std::copy_n(u + c * ld, h, work_.data() + c * h);
+      comm::broadcast(col, work_.data(), h * (w - h), pr);
+      u = work_.data();
+      ldu = h;
+    }
+    const index_t lr2 = rows.local_begin(me, j + h), m = a_.local_rows() - lr2;
+    blas::gemm(op::none, op::none, m, w - h, h, T(-1), a_.at(lr2, left.begin), ld, u, ldu, T(1),
+               a_.at(lr2, right.begin), ld);
+
+    columns(j + h, w - h);
+    detail::interchange_rows(a_, j + h, pivots_of(j + h, w - h), std::span(&left, 1));
+  }
+
+  void narrow(index_t j, index_t w) {
+    const auto& rows = a_.layout().rows;
+    const int me = a_.grid().myrow();
+    const index_t mloc = a_.local_rows(), ld = a_.ld();
+    pivot_row_.resize(static_cast<std::size_t>(w));
+    diagonal_row_.resize(static_cast<std::size_t>(w));
+    const auto copy_row = [&](index_t li, T* to) {
+      for (index_t c = 0; c < w; ++c) to[c] = *a_.at(li, lc(j) + c);
+    };
+    const auto store_row = [&](index_t li, const T* from) {
+      for (index_t c = 0; c < w; ++c) *a_.at(li, lc(j) + c) = from[c];
+    };
+    for (index_t t = 0; t < w; ++t) {
+      const index_t jj = j + t;
+      const T* column = a_.at(0, lc(jj));
+      comm::candidate mine{-1.0, -1};
+      for (index_t li = rows.local_begin(me, jj); li < mloc; ++li) {
+        const double m = static_cast<double>(abs1(column[li]));
+        if (m > mine.magnitude) mine = {m, rows.global(me, li)};
+      }
+      const bool holds_diagonal = rows.owner(jj) == me;
+      if (mine.row >= 0) copy_row(rows.local(mine.row), pivot_row_.data());
+      if (holds_diagonal) copy_row(rows.local(jj), diagonal_row_.data());
+      const auto found = [&] {
+        const phase_clock clock(search_seconds_);
+        return comm::best_with_rows(a_.grid().col(), mine, pivot_row_.data(), diagonal_row_.data(),
+                                    holds_diagonal, w);
+      }();
+      // A column of NaNs has no candidate and keeps its row.
+      const index_t r = found.row < 0 ? jj : found.row;
+      const T* pivot_row = found.row < 0 ? diagonal_row_.data() : pivot_row_.data();
+      pivots_[static_cast<std::size_t>(jj - j0_)] = r;
+      if (r != jj) {
+        if (holds_diagonal) store_row(rows.local(jj), pivot_row);
+        if (rows.owner(r) == me) store_row(rows.local(r), diagonal_row_.data());
+      }
+
+      const T pivot = pivot_row[t];
+      const index_t below = rows.local_begin(me, jj + 1), count = mloc - below;
+      T* l = a_.at(below, lc(jj));
+      if (pivot == T(0)) {
+        if (zero_column_ < 0) zero_column_ = jj;
+      } else if (std::abs(pivot) >= std::numeric_limits<real_t<T>>::min()) {
+        blas::scale(count, T(1) / pivot, l);
+      } else {  // 1/pivot would overflow
+        for (index_t i = 0; i < count; ++i) l[i] /= pivot;
+      }
+      blas::rank1(count, w - t - 1, T(-1), l, pivot_row + t + 1, a_.at(below, lc(jj) + 1), ld);
+    }
+  }
+
+  dist_matrix<T>& a_;
+  index_t j0_, lc0_;
+  std::span<index_t> pivots_;
+  double& search_seconds_;
+  index_t zero_column_ = -1;
+  std::vector<T> pivot_row_, diagonal_row_, work_;
+};
+
+template <scalar T>
+class blocked_lu {
+public:
+  blocked_lu(dist_matrix<T>& a, lu_result& result, const lu_options& options)
+      : a_(a), result_(result), options_(options), rows_(a.layout().rows), cols_(a.layout().cols),
+        myrow_(a.grid().myrow()), mycol_(a.grid().mycol()) {
+    // Panels follow the distribution's blocks; a resumed factorization may start inside
+    // one (it was cut with another block size), whose rest is then the first panel.
+    starts_.push_back(result.columns_done);
+    for (index_t j = result.columns_done; j < a.cols();) {
+      const index_t k = rows_.block_of(j);
+      j = rows_.block_start(k) + rows_.block_size(k);
+      starts_.push_back(j);
+    }
+  }
+
+  void run() {
+    const index_t steps = static_cast<index_t>(starts_.size()) - 1;
+    index_t last = -1;  // the last panel started
+    bool settling = false, stopping = false;
+    for (index_t s = 0; s < steps; ++s) {
+      const index_t ahead = std::min(steps - 1, settling ? s : s + options_.lookahead);
+      while (last < ahead) start_panel(++last);
+      panel& p = flight_.front();
+      arrive(p);
+      std::copy_n(p.pivots.begin(), p.jb, result_.pivots.begin() + p.j0);
+      if (result_.first_zero_pivot < 0) result_.first_zero_pivot = p.pivots[p.jb];
+
+      // The panel's interchanges on the finished columns left of it and on everything
+      // beyond the panels in flight (which had them before they were factored), then
+      // the trailing update of the latter.
+      const column_range beyond{lc(starts_[last + 1]), a_.local_cols()};
+      const column_range swaps[] = {{0, lc(p.j0)}, beyond};
+      {
+        const phase_clock clock(result_.phases.interchange);
+        detail::interchange_rows(a_, p.j0, pivots_of(p), swaps);
+      }
+      update(p, beyond, true);
+      flight_.pop_front();
+
+      result_.columns_done = starts_[s + 1];
+      result_.settled = last == s;
+      if (result_.settled) settling = false;
+      if (stopping) {
+        if (result_.settled) break;
+        continue;
+      }
+      if (!options_.after_step) continue;
+      const auto request = options_.after_step(result_);
+      if (request == step_request::stop && result_.settled) break;
+      stopping = request == step_request::stop;
+      if (request != step_request::go_on && !result_.settled) settling = true;
+    }
+  }
+
+private:
+  struct panel {
+    index_t j0 = 0, jb = 0;
+    index_t lr0 = 0, mp = 0;  // local rows [lr0, lr0 + mp) are those from j0 down
+    std::vector<T> data;      // those rows of the factored panel, column-major, ld mp
+    std::vector<index_t> pivots;  // jb pivot rows, then the first zero-pivot column or -1
+    comm::request data_sent, pivots_sent;
+    bool arrived = false;
+  };
+
+  index_t lc(index_t j) const { return cols_.local_begin(mycol_, j); }
+  static std::span<const index_t> pivots_of(const panel& p) {
+    return std::span(p.pivots).first(static_cast<std::size_t>(p.jb));
+  }
+
+  // Panel t: its process column brings it up to date with the panels in flight, factors
+  // it and starts sending it along the process rows; the other ranks post the receive.
+  void start_panel(index_t t) {
+    panel& p = flight_.emplace_back();
+    p.j0 = starts_[t];
+    p.jb = starts_[t + 1] - p.j0;
+    p.lr0 = rows_.local_begin(myrow_, p.j0);
+    p.mp = a_.local_rows() - p.lr0;
+    p.data.resize(static_cast<std::size_t>(p.mp * p.jb));
+    p.pivots.assign(static_cast<std::size_t>(p.jb + 1), -1);
+    const int pc = cols_.owner(p.j0);
+    if (mycol_ == pc) {
+      const column_range mine{lc(p.j0), lc(p.j0 + p.jb)};
+      for (auto q = flight_.begin(); q != flight_.end() - 1; ++q) {
+        arrive(*q);
+        {
+          const phase_clock clock(result_.phases.interchange);
+          detail::interchange_rows(a_, q->j0, pivots_of(*q), std::span(&mine, 1));
+        }
+        update(*q, mine, false);
+      }
+      const phase_clock clock(result_.phases.panel);
+      panel_factorization<T> f(a_, p.j0, mine.begin, std::span(p.pivots).first(p.jb),
+                               result_.phases.pivot_search);
+      p.pivots[p.jb] = f.run();
+      for (index_t c = 0; c < p.jb; ++c)
+        std::copy_n(a_.at(p.lr0, mine.begin + c), p.mp, p.data.data() + c * p.mp);
+    }
+    const auto& row = a_.grid().row();
+    p.data_sent = comm::start_broadcast(row, p.data.data(), p.mp * p.jb, pc);
+    p.pivots_sent = comm::start_broadcast(row, p.pivots.data(), p.jb + 1, pc);
+  }
+
+  void arrive(panel& p) {
+    if (p.arrived) return;
+    const phase_clock clock(result_.phases.wait);
+    p.data_sent.wait();
+    p.pivots_sent.wait();
+    p.arrived = true;
+  }
+
+  void poll() {
+    for (auto& p : flight_) {
+      p.data_sent.test();
+      p.pivots_sent.test();
+    }
+  }
+
+  // The block row of U over local columns `target` (solved on the panel's process row,
+  // sent down the process columns), then the GEMM below it.
+  void update(const panel& p, column_range target, bool polling) {
+    const index_t nr = target.end - target.begin;
+    if (nr == 0) return;  // the same on the whole process column
+    const int pr = rows_.owner(p.j0);
+    const index_t ld = a_.ld();
+    const T* u = a_.at(p.lr0, target.begin);
+    index_t ldu = ld;
+    if (myrow_ == pr) {
+      const phase_clock clock(result_.phases.trsm);
+      blas::trsm_left(triangle::lower, diagonal::unit, p.jb, nr, T(1), p.data.data(), p.mp,
+                      a_.at(p.lr0, target.begin), ld);
+    }
+    const auto& col = a_.grid().col();
+    if (col.size() > 1) {
+      const phase_clock clock(result_.phases.broadcast);
+      urow_.resize(static_cast<std::size_t>(p.jb * nr));
+      if (myrow_ == pr)
+        for (index_t c = 0; c < nr; ++c) std::copy_n(u + c * ld, p.jb, urow_.data() + c * p.jb);
+      comm::broadcast(col, urow_.data(), p.jb * nr, pr);
+      u = urow_.data();
+      ldu = p.jb;
+    }
+    const phase_clock clock(result_.phases.gemm);
+    const index_t lr1 = rows_.local_begin(myrow_, p.j0 + p.jb), m = a_.local_rows() - lr1;
+    const T* l = p.data.data() + (lr1 - p.lr0);
+    for (index_t c = 0; c < nr; c += update_chunk) {
+      const index_t w = std::min(update_chunk, nr - c);
+      blas::gemm(op::none, op::none, m, w, p.jb, T(-1), l, p.mp, u + c * ldu, ldu, T(1),
+                 a_.at(lr1, target.begin + c), ld);
+      if (polling) poll();
+    }
+  }
+
+  dist_matrix<T>& a_;
+  lu_result& result_;
+  const lu_options& options_;
+  const cyclic_map &rows_, &cols_;
+  const int myrow_, mycol_;
+  std::vector<index_t> starts_;  // panel t is the global columns [starts_[t], starts_[t + 1])
+  std::deque<panel> flight_;     // the panels started and not yet applied, oldest first
+  std::vector<T> urow_;
+};
 
 }  // namespace
 
 template <scalar T>
 lu_result factor(dist_matrix<T>& a, lu_result state, const lu_options& options) {
   if (a.rows() != a.cols()) throw error(exit_code::usage, "LU needs a square matrix");
-  const auto& grid = a.grid();
-  const auto& rows = a.layout().rows;
-  const auto& cols = a.layout().cols;
-  const int myrow = grid.myrow(), mycol = grid.mycol();
-  const index_t n = a.rows(), mloc = a.local_rows(), nloc = a.local_cols(), ld = a.ld();
-  if (state.columns_done < 0 || state.columns_done > n)
-    throw error(exit_code::internal, "factor: columns_done out of range");
-
+  if (options.lookahead < 0) throw error(exit_code::usage, "look-ahead depth must be 0 or more");
+  if (state.columns_done < 0 || state.columns_done > a.rows() || !state.settled)
+    throw error(exit_code::internal, "factor: not a state to continue from");
   lu_result result = std::move(state);
   result.phases = {};
-  result.pivots.resize(static_cast<std::size_t>(n));
-  std::vector<T> panel, urow;
-  std::vector<index_t> step;  // the panel's pivots, then its first zero-pivot column
-  // Panels follow the distribution's blocks; a resumed factorization may start inside
-  // one (it was cut with another block size), whose rest is then the first panel.
-  for (index_t j0 = result.columns_done; j0 < n; j0 = result.columns_done) {
-    const index_t k = rows.block_of(j0);
-    const index_t jb = rows.block_start(k) + rows.block_size(k) - j0;
-    const int pr = rows.block_owner(k), pc = cols.block_owner(k);
-    const index_t lr0 = rows.local_begin(myrow, j0), mp = mloc - lr0;
-    const index_t lc0 = cols.local_begin(mycol, j0);
-
-    // Panel: factored by its process column, then sent along every process row.
-    panel.resize(static_cast<std::size_t>(mp * jb));
-    step.assign(static_cast<std::size_t>(jb + 1), -1);
-    if (mycol == pc) {
-      const phase_clock clock(result.phases.panel);
-      factor_panel(a, j0, jb, lc0, std::span(step).first(jb), step[jb], result.phases.pivot_search);
-      for (index_t c = 0; c < jb; ++c) std::copy_n(a.at(lr0, lc0 + c), mp, panel.data() + c * mp);
-    }
-    {
-      const phase_clock clock(result.phases.broadcast);
-      comm::broadcast(grid.row(), panel.data(), mp * jb, pc);
-      comm::broadcast(grid.row(), step.data(), jb + 1, pc);
-    }
-    std::copy_n(step.begin(), jb, result.pivots.begin() + j0);
-    if (result.first_zero_pivot < 0) result.first_zero_pivot = step[jb];
-
-    // The panel's interchanges on the columns left and right of it.
-    const detail::column_range outside[] = {{0, mycol == pc ? lc0 : nloc},
-                                            {mycol == pc ? lc0 + jb : nloc, nloc}};
-    {
-      const phase_clock clock(result.phases.interchange);
-      detail::interchange_rows(a, j0, std::span(step).first(jb), outside);
-    }
-
-    // Block row of U: solved on its process row, then sent down every process column.
-    const index_t lc1 = cols.local_begin(mycol, j0 + jb), nr = nloc - lc1;
-    urow.resize(static_cast<std::size_t>(jb * nr));
-    if (myrow == pr) {
-      const phase_clock clock(result.phases.trsm);
-      blas::trsm_left(triangle::lower, diagonal::unit, jb, nr, T(1), panel.data(), mp,
-                      a.at(lr0, lc1), ld);
-      for (index_t c = 0; c < nr; ++c) std::copy_n(a.at(lr0, lc1 + c), jb, urow.data() + c * jb);
-    }
-    {
-      const phase_clock clock(result.phases.broadcast);
-      comm::broadcast(grid.col(), urow.data(), jb * nr, pr);
-    }
-
-    // Trailing update: one GEMM per rank.
-    const index_t lr1 = rows.local_begin(myrow, j0 + jb);
-    {
-      const phase_clock clock(result.phases.gemm);
-      blas::gemm(op::none, op::none, mloc - lr1, nr, jb, T(-1), panel.data() + (lr1 - lr0), mp,
-                 urow.data(), jb, T(1), a.at(lr1, lc1), ld);
-    }
-    result.columns_done = j0 + jb;
-    if (options.after_step && options.after_step(result)) break;
-  }
+  result.pivots.resize(static_cast<std::size_t>(a.rows()));
+  blocked_lu<T>(a, result, options).run();
   return result;
 }
 

@@ -47,15 +47,17 @@ bench_result bench_typed(const process_grid& grid, const bench_options& o) {
   r.gemm_gflops = gemm_rate<T>(grid, r.gemm_order);
   dist_matrix<T> a(grid, o.n, o.n, o.block);
   std::vector<lu_phases> phases;
+  lu_options lo;
+  lo.lookahead = o.lookahead;
   for (int rep = 0; rep < o.repeat; ++rep) {
     a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
-    r.factor_seconds.push_back(timed(grid, [&] { phases.push_back(factor(a).phases); }));
+    r.factor_seconds.push_back(timed(grid, [&] { phases.push_back(factor(a, lo).phases); }));
   }
   r.factor_median = median(r.factor_seconds);
   const auto at_median =
       std::find(r.factor_seconds.begin(), r.factor_seconds.end(), r.factor_median);
-  r.phases = phases[at_median == r.factor_seconds.end() ? 0 : at_median - r.factor_seconds.begin()];
-  comm::max(grid.all(), &r.phases.panel, sizeof(lu_phases) / sizeof(double));
+  r.phases = slowest(
+      grid, phases[at_median == r.factor_seconds.end() ? 0 : at_median - r.factor_seconds.begin()]);
   r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_median * 1e-9;
   return r;
 }
@@ -73,7 +75,9 @@ demo_result demo_typed(const process_grid& grid, const demo_options& o) {
     x.fill(b_entry);
   });
   lu_result lu;
-  r.factor_seconds = timed(grid, [&] { lu = factor(a); });
+  lu_options lo;
+  lo.lookahead = o.lookahead;
+  r.factor_seconds = timed(grid, [&] { lu = factor(a, lo); });
   r.first_zero_pivot = lu.first_zero_pivot;
   r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_seconds * 1e-9;
   r.solve_seconds = timed(grid, [&] { solve(a, lu.pivots, x); });

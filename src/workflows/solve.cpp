@@ -141,6 +141,7 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
   };
   constexpr std::int64_t signal_flag = 1, periodic_flag = 2, budget_flag = 4;
   lu_options lo;
+  lo.lookahead = o.lookahead;
   lo.after_step = [&](const lu_result& state) {
     const index_t done = state.columns_done;
     const double now = comm::wtime(), seconds = now - start;
@@ -148,31 +149,34 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
     if (o.progress)
       o.progress(1.0 - lu_flops<T>(static_cast<double>(n - done)) / total, seconds,
                  seconds > 0 ? flops / seconds * 1e-9 : 0.0);
-    if (!checkpointing) return false;
+    if (!checkpointing) return step_request::go_on;
     std::int64_t flags = stop_requested ? signal_flag : 0;
     if (o.checkpoint_every > 0 && now - last_save >= o.checkpoint_every) flags |= periodic_flag;
     if (o.stop_after > 0) {
-      // Go on only if one more step and a checkpoint still fit in the budget.
+      // Go on only if the steps that settle the look-ahead, one more, and a checkpoint
+      // still fit in the budget.
       const double rate = seconds > 0 ? flops / seconds : 0.0;
-      const index_t next = std::min(n, done + a.block());
-      const double step_flops =
+      const index_t next = std::min(n, done + (1 + lo.lookahead) * a.block());
+      const double steps_flops =
           lu_flops<T>(static_cast<double>(n - done)) - lu_flops<T>(static_cast<double>(n - next));
-      const double step = rate > 0 ? step_flops / rate : 0.0;
+      const double steps = rate > 0 ? steps_flops / rate : 0.0;
       const double tail = done == n ? 1.5 * r.read_seconds + 0.5 : 0.0;  // solve, check, write
-      if (now - o.started + step + tail + 1.25 * save_estimate + 0.5 > o.stop_after)
+      if (now - o.started + steps + tail + 1.25 * save_estimate + 0.5 > o.stop_after)
         flags |= budget_flag;
     }
     comm::max(grid.all(), &flags, 1);
+    if (flags == 0) return step_request::go_on;
+    if (!state.settled) return step_request::settle;  // a checkpoint needs a settled state
+    save(state);
     if (flags & (signal_flag | budget_flag)) {
-      save(state);
       r.stopped = true;
-      return true;
+      return step_request::stop;
     }
-    if (flags & periodic_flag) save(state);
-    return false;
+    return step_request::go_on;
   };
   const double seconds = timed(grid, [&] { lu = factor(a, std::move(lu), lo); });
   r.factor_seconds = seconds;
+  r.phases = slowest(grid, lu.phases);
   r.gflops = (total - done_before) / seconds * 1e-9;
   r.columns_done = lu.columns_done;
   // With everything eliminated, one last checkpoint covers the solve phase too.
@@ -408,6 +412,7 @@ solve_result resume_dir(const process_grid& grid, const resume_options& ro) {
   o.column_major = w.column_major;
   o.save_factors = w.save_factors;
   o.block = ro.block > 0 ? ro.block : w.block;
+  o.lookahead = ro.lookahead;
   o.force = ro.force;
   o.progress = ro.progress;
   o.checkpoint_dir = ro.dir;

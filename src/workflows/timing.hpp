@@ -5,6 +5,7 @@
 #include <vector>
 
 #include "gridlu/grid.hpp"
+#include "gridlu/lu.hpp"
 
 namespace gridlu::workflows {
 
@@ -16,6 +17,13 @@ double timed(const process_grid& grid, F&& f) {
   f();
   comm::barrier(grid.all());
   return comm::wtime() - start;
+}
+
+// Each phase's time on the slowest rank for it.
+inline lu_phases slowest(const process_grid& grid, lu_phases p) {
+  static_assert(sizeof(lu_phases) % sizeof(double) == 0, "lu_phases holds doubles only");
+  comm::max(grid.all(), &p.panel, sizeof(lu_phases) / sizeof(double));
+  return p;
 }
 
 inline double median(std::vector<double> v) {

@@ -15,6 +15,10 @@ namespace gridlu::workflows {
 // Default block size; see DEVELOPERS.md for the measurements behind it.
 inline constexpr index_t default_block = 64;
 
+// Default look-ahead depth: one panel ahead hides the panel and its broadcast; deeper
+// only adds memory here (see DEVELOPERS.md).
+inline constexpr int default_lookahead = 1;
+
 inline void require_block(index_t block) {
   if (block < 1) throw error(exit_code::usage, "the block size must be at least 1");
 }
@@ -22,6 +26,7 @@ inline void require_block(index_t block) {
 struct bench_options {
   index_t n = 4096;
   index_t block = default_block;
+  int lookahead = default_lookahead;
   std::string type = "float64";
   std::uint64_t seed = 1;
   int repeat = 1;
@@ -60,6 +65,7 @@ struct demo_options {
   index_t n = 3000;
   index_t nrhs = 4;
   index_t block = default_block;
+  int lookahead = default_lookahead;
   std::string type = "float64";
   std::uint64_t seed = 1;
 };
@@ -82,6 +88,7 @@ struct solve_options {
   std::string input, output;
   std::string matrix_dataset = "A", rhs_dataset = "B", rhs_file;  // rhs_file empty: input
   index_t block = default_block;
+  int lookahead = default_lookahead;
   bool column_major = false;  // the file holds the transpose of A
   bool force = false;
   std::string save_factors, factors;  // paths, or empty
@@ -99,6 +106,7 @@ struct solve_result {
   double read_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0,
          write_seconds = 0, total_seconds = 0;
   double gflops = 0;
+  lu_phases phases;  // of this run's factorization: the largest over the ranks, per phase
   std::vector<double> backward_errors;
   double threshold = 0;  // accepted backward error for the type: 10 n eps
   // Checkpointing: stopped early (by a signal or the time budget) with a checkpoint.
@@ -118,6 +126,7 @@ solve_result solve_file(const process_grid& grid, const solve_options& options);
 struct resume_options {
   std::string dir;
   index_t block = 0;   // 0: the default block size
+  int lookahead = default_lookahead;
   std::string output;  // empty: the one recorded in the checkpoint
   bool force = false;
   double checkpoint_every = 0, stop_after = 0, started = 0;

@@ -69,51 +69,91 @@ double worst_backward_error(const std::vector<T>& a, const std::vector<T>& x,
   return worst;
 }
 
+// On the root: the pivots, zero-pivot column and factors of a factorization must be
+// LAPACK's (?getrf on the gathered original), the factors within n eps ||A||.
+template <class T>
+void expect_lapack_result(const std::vector<T>& original, const std::vector<T>& ours,
+                          const lu_result& lu, index_t n) {
+  const auto ref = lapack_lu(original, n);
+  EXPECT_EQ(lu.first_zero_pivot + 1, ref.info);
+  EXPECT_EQ(lu.columns_done, n);
+  EXPECT_TRUE(lu.settled);
+  std::vector<index_t> lapack_pivots(ref.ipiv.begin(), ref.ipiv.end());
+  for (auto& p : lapack_pivots) --p;  // LAPACK counts from 1
+  EXPECT_EQ(lu.pivots, lapack_pivots);
+  double diff = 0;
+  for (std::size_t e = 0; e < ours.size(); ++e)
+    diff = std::max(diff, static_cast<double>(std::abs(ours[e] - ref.factors[e])));
+  EXPECT_LE(diff, n * epsilon<T>() * max_row_sum(original, n, n));
+}
+
+lu_options with_lookahead(int depth) {
+  lu_options o;
+  o.lookahead = depth;
+  return o;
+}
+
 TYPED_TEST(Lu, PivotsAndFactorsMatchLapackAndSolvesAreBackwardStable) {
   using T = TypeParam;
   const double eps = epsilon<T>();
   for (const auto shape : shapes_for_world()) {
     const process_grid grid(MPI_COMM_WORLD, shape);
     for (const index_t n : {1, 2, 7, 64, 100, 257})
-      for (const index_t nb : {1, 3, 16, 64}) {
-        SCOPED_TRACE(::testing::Message()
-                     << "grid " << shape.p << "x" << shape.q << " n=" << n << " nb=" << nb);
-        const std::uint64_t seed = 1000 + 7 * n + nb;
-        const auto entry = [&](index_t i, index_t j) { return random_entry<T>(seed, i, j); };
-        dist_matrix<T> a(grid, n, n, nb);
-        a.fill(entry);
-        const auto original = a.gather();
-        const auto lu = factor(a);
-        const auto ours = a.gather();
-        if (is_root()) {
-          const auto ref = lapack_lu(original, n);
-          EXPECT_EQ(lu.first_zero_pivot + 1, ref.info);
-          std::vector<index_t> lapack_pivots(ref.ipiv.begin(), ref.ipiv.end());
-          for (auto& p : lapack_pivots) --p;  // LAPACK counts from 1
-          EXPECT_EQ(lu.pivots, lapack_pivots);
-          double diff = 0;
-          for (std::size_t e = 0; e < ours.size(); ++e)
-            diff = std::max(diff, static_cast<double>(std::abs(ours[e] - ref.factors[e])));
-          EXPECT_LE(diff, n * eps * max_row_sum(original, n, n));
-        }
-        for (const index_t k : {1, 5}) {
-          dist_matrix<T> b(grid, n, k, nb), x(grid, n, k, nb);
-          const auto rhs = [&](index_t i, index_t j) { return random_entry<T>(seed + 1, i, j); };
-          b.fill(rhs);
-          x.fill(rhs);
-          solve(a, lu.pivots, x);
-          const auto xs = x.gather(), bs = b.gather();
-          if (is_root()) {
-            EXPECT_LE(worst_backward_error(original, xs, bs, n, k), 10 * n * eps) << "k=" << k;
+      for (const index_t nb : {1, 3, 16, 64})
+        for (const int depth : {0, 1, 2}) {
+          SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
+                                            << " nb=" << nb << " look-ahead " << depth);
+          const std::uint64_t seed = 1000 + 7 * n + nb;
+          const auto entry = [&](index_t i, index_t j) { return random_entry<T>(seed, i, j); };
+          dist_matrix<T> a(grid, n, n, nb);
+          a.fill(entry);
+          const auto original = a.gather();
+          const auto lu = factor(a, with_lookahead(depth));
+          const auto ours = a.gather();
+          if (is_root()) expect_lapack_result(original, ours, lu, n);
+          for (const index_t k : {1, 5}) {
+            dist_matrix<T> b(grid, n, k, nb), x(grid, n, k, nb);
+            const auto rhs = [&](index_t i, index_t j) { return random_entry<T>(seed + 1, i, j); };
+            b.fill(rhs);
+            x.fill(rhs);
+            solve(a, lu.pivots, x);
+            const auto xs = x.gather(), bs = b.gather();
+            if (is_root()) {
+              EXPECT_LE(worst_backward_error(original, xs, bs, n, k), 10 * n * eps) << "k=" << k;
+            }
           }
         }
-      }
+  }
+}
+
+// Sizes where some process rows or columns own no block of the last steps, or none at
+// all (fewer blocks than ranks along a grid dimension), and a short last block: the
+// look-ahead must skip those ranks' empty work without a collective going astray.
+TYPED_TEST(Lu, LookaheadOnGridsWhereRanksOwnNoBlockOfTheLastSteps) {
+  using T = TypeParam;
+  for (const auto shape : shapes_for_world()) {
+    const process_grid grid(MPI_COMM_WORLD, shape);
+    const index_t nb = 8, most = std::max(shape.p, shape.q);
+    for (index_t blocks = 1; blocks <= most + 1; ++blocks)
+      for (const index_t tail : {index_t{0}, index_t{3}})
+        for (const int depth : {0, 1, 2, 5}) {
+          const index_t n = (blocks - 1) * nb + (tail == 0 ? nb : tail);
+          SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
+                                            << " look-ahead " << depth);
+          dist_matrix<T> a(grid, n, n, nb);
+          a.fill([&](index_t i, index_t j) { return random_entry<T>(31 + n, i, j); });
+          const auto original = a.gather();
+          const auto lu = factor(a, with_lookahead(depth));
+          const auto ours = a.gather();
+          if (is_root()) expect_lapack_result(original, ours, lu, n);
+        }
   }
 }
 
 // A factorization stopped part-way, moved in its global layout to another grid shape and
 // block size (as a checkpoint is), and continued there, must end with LAPACK's pivots and
-// factors: the state after k columns does not depend on how it was computed.
+// factors: the state after k columns does not depend on how it was computed. With
+// look-ahead the stop waits until no panel is factored ahead.
 TYPED_TEST(Lu, StoppedAndContinuedOnAnotherGridAndBlockSizeMatchesLapack) {
   using T = TypeParam;
   const auto shapes = shapes_for_world();
@@ -121,31 +161,73 @@ TYPED_TEST(Lu, StoppedAndContinuedOnAnotherGridAndBlockSizeMatchesLapack) {
     const process_grid first(MPI_COMM_WORLD, shapes[s]);
     const process_grid second(MPI_COMM_WORLD, shapes[(s + 1) % shapes.size()]);
     for (const index_t n : {100, 257})
-      for (const auto& [nb1, nb2] : {std::pair<index_t, index_t>{16, 5}, {3, 64}, {64, 16}}) {
-        SCOPED_TRACE(::testing::Message() << "n=" << n << " nb " << nb1 << " -> " << nb2);
-        const auto entry = [&](index_t i, index_t j) { return random_entry<T>(77 + n, i, j); };
-        dist_matrix<T> a(first, n, n, nb1);
-        a.fill(entry);
-        const auto original = a.gather();
-        lu_options stop_early;
-        stop_early.after_step = [&](const lu_result& st) { return st.columns_done >= n / 3; };
-        auto state = factor(a, stop_early);
-        EXPECT_LT(state.columns_done, n);
-        dist_matrix<T> b(second, n, n, nb2);
-        b.scatter(a.gather());
-        const auto lu = factor(b, std::move(state));
-        const auto ours = b.gather();
-        if (!is_root()) continue;
-        const auto ref = lapack_lu(original, n);
-        std::vector<index_t> lapack_pivots(ref.ipiv.begin(), ref.ipiv.end());
-        for (auto& p : lapack_pivots) --p;
-        EXPECT_EQ(lu.pivots, lapack_pivots);
-        EXPECT_EQ(lu.columns_done, n);
-        double diff = 0;
-        for (std::size_t e = 0; e < ours.size(); ++e)
-          diff = std::max(diff, static_cast<double>(std::abs(ours[e] - ref.factors[e])));
-        EXPECT_LE(diff, n * epsilon<T>() * max_row_sum(original, n, n));
-      }
+      for (const auto& [nb1, nb2] : {std::pair<index_t, index_t>{16, 5}, {3, 64}, {64, 16}})
+        for (const int depth : {0, 1, 2}) {
+          SCOPED_TRACE(::testing::Message()
+                       << "n=" << n << " nb " << nb1 << " -> " << nb2 << " look-ahead " << depth);
+          const auto entry = [&](index_t i, index_t j) { return random_entry<T>(77 + n, i, j); };
+          dist_matrix<T> a(first, n, n, nb1);
+          a.fill(entry);
+          const auto original = a.gather();
+          auto stop_early = with_lookahead(depth);
+          index_t asked_at = -1;
+          stop_early.after_step = [&](const lu_result& st) {
+            if (asked_at < 0 && st.columns_done >= n / 3) asked_at = st.columns_done;
+            return asked_at < 0 ? step_request::go_on : step_request::stop;
+          };
+          auto state = factor(a, stop_early);
+          EXPECT_TRUE(state.settled);
+          EXPECT_GE(state.columns_done, asked_at);
+          // Draining the panels factored ahead takes at most `depth` more steps.
+          EXPECT_LE(state.columns_done, std::min(n, asked_at + depth * nb1));
+          dist_matrix<T> b(second, n, n, nb2);
+          b.scatter(a.gather());
+          const auto lu = factor(b, std::move(state), with_lookahead(2 - depth));
+          const auto ours = b.gather();
+          if (is_root()) expect_lapack_result(original, ours, lu, n);
+        }
+  }
+}
+
+// Asking to settle (once; the request holds) makes a settled state show up within
+// `depth` steps, after which the factorization looks ahead again and still ends with
+// LAPACK's result.
+TYPED_TEST(Lu, SettlingPausesTheLookaheadAndResumesIt) {
+  using T = TypeParam;
+  for (const auto shape : shapes_for_world()) {
+    const process_grid grid(MPI_COMM_WORLD, shape);
+    const index_t n = 150, nb = 7;
+    for (const int depth : {1, 2}) {
+      SCOPED_TRACE(::testing::Message()
+                   << "grid " << shape.p << "x" << shape.q << " look-ahead " << depth);
+      dist_matrix<T> a(grid, n, n, nb);
+      a.fill([&](index_t i, index_t j) { return random_entry<T>(9, i, j); });
+      const auto original = a.gather();
+      auto o = with_lookahead(depth);
+      int steps = 0, waited = -1, settled_steps = 0, pauses = 0;
+      o.after_step = [&](const lu_result& st) {
+        ++steps;
+        settled_steps += st.settled ? 1 : 0;
+        if (waited >= 0 && st.settled) {
+          EXPECT_LE(waited, depth);
+          waited = -1;
+          ++pauses;
+        } else if (waited >= 0) {
+          ++waited;
+        }
+        if (steps % 5 == 0 && !st.settled) {
+          waited = 1;
+          return step_request::settle;
+        }
+        return step_request::go_on;
+      };
+      const auto lu = factor(a, o);
+      const auto ours = a.gather();
+      EXPECT_GT(pauses, 2);
+      // Looking ahead again after each pause: most steps are not settled.
+      EXPECT_LT(settled_steps, steps / 2);
+      if (is_root()) expect_lapack_result(original, ours, lu, n);
+    }
   }
 }
 
