@@ -30,9 +30,10 @@ struct lu_result {
   index_t first_zero_pivot = -1;
   // Columns eliminated so far: n when complete; pivots beyond it are not yet chosen.
   index_t columns_done = 0;
-  // True when no panel beyond columns_done has been factored ahead: the matrix is then
-  // exactly the working matrix after columns_done columns, a state that can be saved or
-  // continued on another grid. Always true when factor() returns.
+  // True when the matrix is exactly the working matrix after columns_done columns, a
+  // state that can be saved or continued on another grid: no panel is factored ahead
+  // and the interchanges held back from the finished columns are applied. Between
+  // settled states neither holds. Always true when factor() returns.
   bool settled = true;
   lu_phases phases;  // of this call, on this rank
 };
@@ -40,8 +41,10 @@ struct lu_result {
 // What the factorization does after a block step.
 enum class step_request {
   go_on,
-  settle,  // factor nothing more ahead until the state is settled (within lookahead steps)
-  stop,    // settle, then return
+  // Factor nothing more ahead and settle within `lookahead` steps; with no panel ahead
+  // that is at once, and after_step is called again for the same step.
+  settle,
+  stop,  // settle, then return
 };
 
 struct lu_options {

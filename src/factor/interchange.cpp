@@ -50,6 +50,7 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
   }
   index_t width = 0;
   for (const auto& c : columns) width += c.end - c.begin;
+  if (width == 0) return;  // the same on every rank of the process column
   // Everything goes column by column: a column is contiguous, a row is not, and walking
   // rows across all columns costs a cache line and a page per entry.
   const auto for_each_column = [&](auto&& f) {

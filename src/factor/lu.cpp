@@ -182,27 +182,31 @@ public:
       std::copy_n(p.pivots.begin(), p.jb, result_.pivots.begin() + p.j0);
       if (result_.first_zero_pivot < 0) result_.first_zero_pivot = p.pivots[p.jb];
 
-      // The panel's interchanges on the finished columns left of it and on everything
-      // beyond the panels in flight (which had them before they were factored), then
-      // the trailing update of the latter.
+      // The panel's interchanges on everything beyond the panels in flight (which had
+      // them before they were factored), then the trailing update there.
       const column_range beyond{lc(starts_[last + 1]), a_.local_cols()};
-      const column_range swaps[] = {{0, lc(p.j0)}, beyond};
       {
         const phase_clock clock(result_.phases.interchange);
-        detail::interchange_rows(a_, p.j0, pivots_of(p), swaps);
+        detail::interchange_rows(a_, p.j0, pivots_of(p), std::span(&beyond, 1));
       }
       update(p, beyond, true);
       flight_.pop_front();
 
       result_.columns_done = starts_[s + 1];
-      result_.settled = last == s;
+      const bool none_ahead = last == s;
+      result_.settled = false;
+      if (none_ahead && (settling || s + 1 == steps)) settle();
       if (result_.settled) settling = false;
       if (stopping) {
         if (result_.settled) break;
         continue;
       }
       if (!options_.after_step) continue;
-      const auto request = options_.after_step(result_);
+      auto request = options_.after_step(result_);
+      if (request != step_request::go_on && none_ahead && !result_.settled) {
+        settle();
+        request = options_.after_step(result_);
+      }
       if (request == step_request::stop && result_.settled) break;
       stopping = request == step_request::stop;
       if (request != step_request::go_on && !result_.settled) settling = true;
@@ -257,8 +261,36 @@ private:
     p.pivots_sent = comm::start_broadcast(row, p.pivots.data(), p.jb + 1, pc);
   }
 
+  // Waits until panel p is here. Its owners need not wait for their sends to finish:
+  // those complete by polling or, at the latest, when the panel is dropped.
+  // Applies the interchanges held back from the finished columns: those of every
+  // panel since the last settled state, to the columns left of that panel. Deferred,
+  // they cost one pass in which each column stays in cache, instead of a few scattered
+  // entries of every finished column at every step. Column groups of at most a block
+  // keep the message buffers O(n nb).
+  void settle() {
+    const phase_clock clock(result_.phases.interchange);
+    const index_t done = result_.columns_done, nb = a_.block();
+    const auto apply = [&](index_t first, column_range local) {
+      if (first >= done) return;
+      const auto pivots = std::span(result_.pivots).subspan(static_cast<std::size_t>(first),
+                                                            static_cast<std::size_t>(done - first));
+      for (index_t c = local.begin; c < local.end; c += nb) {
+        const column_range part{c, std::min(local.end, c + nb)};
+        detail::interchange_rows(a_, first, pivots, std::span(&part, 1));
+      }
+    };
+    // Columns settled before: they lack the pivots from there on.
+    apply(settled_at_, {0, lc(settled_at_)});
+    // Columns of the panels since: they lack the pivots after their own panel.
+    for (std::size_t t = 0; t + 1 < starts_.size() && starts_[t + 1] <= done; ++t)
+      if (starts_[t] >= settled_at_) apply(starts_[t + 1], {lc(starts_[t]), lc(starts_[t + 1])});
+    settled_at_ = done;
+    result_.settled = true;
+  }
+
   void arrive(panel& p) {
-    if (p.arrived) return;
+    if (p.arrived || mycol_ == cols_.owner(p.j0)) return;
     const phase_clock clock(result_.phases.wait);
     p.data_sent.wait();
     p.pivots_sent.wait();
@@ -315,6 +347,7 @@ private:
   std::vector<index_t> starts_;  // panel t is the global columns [starts_[t], starts_[t + 1])
   std::deque<panel> flight_;     // the panels started and not yet applied, oldest first
   std::vector<T> urow_;
+  index_t settled_at_ = result_.columns_done;  // finished columns lack no interchange before it
 };
 
 }  // namespace
