@@ -4,6 +4,9 @@ against OpenBLAS's own threaded LU, alternating the runs so that drifts of the m
 all alike; prints medians and ratios.
 
     /usr/bin/python3 tools/bench_lu.py [--sizes 4096 8192] [--rounds 3] [--build build]
+        [--grids 1x2 2x1] [--variant "--block 128" --variant "--block 256 --lookahead 2"]
+
+Each --variant is a set of extra `gridlu bench` options, run in the same rounds.
 """
 import argparse
 import json
@@ -29,31 +32,36 @@ def main():
     p.add_argument("--ranks", type=int, default=2)
     p.add_argument("--block", type=int)
     p.add_argument("--build", default="build")
+    p.add_argument("--grids", nargs="+")
+    p.add_argument("--variant", action="append", help="extra gridlu bench options")
     args = p.parse_args()
     root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
     gridlu = os.path.join(args.build, "gridlu")
     reference = os.path.join(args.build, "reference_lu")
     launch = [os.path.join(root, "tools", "launch"), "-n", str(args.ranks)]
-    grids = [f"1x{args.ranks}", f"{args.ranks}x1"]
+    grids = args.grids or [f"1x{args.ranks}", f"{args.ranks}x1"]
     block = ["--block", str(args.block)] if args.block else []
+    variants = args.variant or [""]
+    cases = [(g, v) for g in grids for v in variants]
     with tempfile.TemporaryDirectory() as tmp:
         report = os.path.join(tmp, "r.json")
         for n in args.sizes:
-            gemm, lapack, ours = [], [], {g: [] for g in grids}
+            gemm, lapack, ours = [], [], {c: [] for c in cases}
             for _ in range(args.rounds):
-                for g in grids:
+                for g, v in cases:
                     r = run_json(launch + [gridlu, "bench", "--n", str(n), "--grid", g, *block,
-                                           "--report", report], report)
-                    ours[g].append(r["gflops"])
+                                           *v.split(), "--report", report], report)
+                    ours[(g, v)].append(r["gflops"])
                     gemm.append(r["gemm_gflops"])
                 lapack.append(run_json([reference, str(n), str(args.ranks)])["gflops"])
             bound, ref = statistics.median(gemm), statistics.median(lapack)
             print(f"n = {n}: GEMM bound {bound:.1f} GFLOP/s, OpenBLAS LU ({args.ranks} threads) "
                   f"{ref:.1f} GFLOP/s = {ref / bound:.3f} of the bound")
-            for g in grids:
-                m = statistics.median(ours[g])
-                print(f"  gridlu {g}: {m:.1f} GFLOP/s = {m / bound:.3f} of the bound, "
-                      f"{m / ref:.3f} x OpenBLAS LU   (runs: {', '.join(f'{v:.1f}' for v in ours[g])})")
+            for g, v in cases:
+                m = statistics.median(ours[(g, v)])
+                runs = ", ".join(f"{x:.1f}" for x in ours[(g, v)])
+                print(f"  gridlu {g} {v}: {m:.1f} GFLOP/s = {m / bound:.3f} of the bound, "
+                      f"{m / ref:.3f} x OpenBLAS LU   (runs: {runs})")
     return 0
 
 

@@ -182,14 +182,9 @@ public:
       std::copy_n(p.pivots.begin(), p.jb, result_.pivots.begin() + p.j0);
       if (result_.first_zero_pivot < 0) result_.first_zero_pivot = p.pivots[p.jb];
 
-      // The panel's interchanges on everything beyond the panels in flight (which had
-      // them before they were factored), then the trailing update there.
-      const column_range beyond{lc(starts_[last + 1]), a_.local_cols()};
-      {
-        const phase_clock clock(result_.phases.interchange);
-        detail::interchange_rows(a_, p.j0, pivots_of(p), std::span(&beyond, 1));
-      }
-      update(p, beyond, true);
+      // The trailing update of everything beyond the panels in flight (which had it
+      // before they were factored).
+      update(p, {lc(starts_[last + 1]), a_.local_cols()}, true);
       flight_.pop_front();
 
       result_.columns_done = starts_[s + 1];
@@ -243,10 +238,6 @@ private:
       const column_range mine{lc(p.j0), lc(p.j0 + p.jb)};
       for (auto q = flight_.begin(); q != flight_.end() - 1; ++q) {
         arrive(*q);
-        {
-          const phase_clock clock(result_.phases.interchange);
-          detail::interchange_rows(a_, q->j0, pivots_of(*q), std::span(&mine, 1));
-        }
         update(*q, mine, false);
       }
       const phase_clock clock(result_.phases.panel);
@@ -304,37 +295,40 @@ private:
     }
   }
 
-  // The block row of U over local columns `target` (solved on the panel's process row,
-  // sent down the process columns), then the GEMM below it.
+  // Panel p's interchanges on local columns `target` (one exchange between process
+  // rows), then the block row of U there (solved on the panel's process row, sent down
+  // the process columns) and the GEMM below it, chunk by chunk: a chunk of U is still
+  // in cache for its GEMM, and the rows below start on a chunk while the next is solved.
   void update(const panel& p, column_range target, bool polling) {
-    const index_t nr = target.end - target.begin;
-    if (nr == 0) return;  // the same on the whole process column
     const int pr = rows_.owner(p.j0);
-    const index_t ld = a_.ld();
-    const T* u = a_.at(p.lr0, target.begin);
-    index_t ldu = ld;
-    if (myrow_ == pr) {
-      const phase_clock clock(result_.phases.trsm);
-      blas::trsm_left(triangle::lower, diagonal::unit, p.jb, nr, T(1), p.data.data(), p.mp,
-                      a_.at(p.lr0, target.begin), ld);
+    const bool sent_down = a_.grid().col().size() > 1;
+    {
+      const phase_clock clock(result_.phases.interchange);
+      detail::interchange_rows(a_, p.j0, pivots_of(p), std::span(&target, 1));
     }
-    const auto& col = a_.grid().col();
-    if (col.size() > 1) {
-      const phase_clock clock(result_.phases.broadcast);
-      urow_.resize(static_cast<std::size_t>(p.jb * nr));
-      if (myrow_ == pr)
-        for (index_t c = 0; c < nr; ++c) std::copy_n(u + c * ld, p.jb, urow_.data() + c * p.jb);
-      comm::broadcast(col, urow_.data(), p.jb * nr, pr);
-      u = urow_.data();
-      ldu = p.jb;
-    }
-    const phase_clock clock(result_.phases.gemm);
-    const index_t lr1 = rows_.local_begin(myrow_, p.j0 + p.jb), m = a_.local_rows() - lr1;
+    const index_t ld = a_.ld(), lr1 = rows_.local_begin(myrow_, p.j0 + p.jb);
+    const index_t m = a_.local_rows() - lr1;
     const T* l = p.data.data() + (lr1 - p.lr0);
-    for (index_t c = 0; c < nr; c += update_chunk) {
-      const index_t w = std::min(update_chunk, nr - c);
-      blas::gemm(op::none, op::none, m, w, p.jb, T(-1), l, p.mp, u + c * ldu, ldu, T(1),
-                 a_.at(lr1, target.begin + c), ld);
+    for (index_t c = target.begin; c < target.end; c += update_chunk) {
+      const index_t w = std::min(update_chunk, target.end - c);
+      T* u = a_.at(p.lr0, c);
+      if (myrow_ == pr) {
+        const phase_clock clock(result_.phases.trsm);
+        blas::trsm_left(triangle::lower, diagonal::unit, p.jb, w, T(1), p.data.data(), p.mp, u, ld);
+      }
+      const T* b = u;
+      index_t ldb = ld;
+      if (sent_down) {
+        const phase_clock clock(result_.phases.broadcast);
+        urow_.resize(static_cast<std::size_t>(p.jb * w));
+        if (myrow_ == pr)
+          for (index_t k = 0; k < w; ++k) std::copy_n(u + k * ld, p.jb, urow_.data() + k * p.jb);
+        comm::broadcast(a_.grid().col(), urow_.data(), p.jb * w, pr);
+        b = urow_.data();
+        ldb = p.jb;
+      }
+      const phase_clock clock(result_.phases.gemm);
+      blas::gemm(op::none, op::none, m, w, p.jb, T(-1), l, p.mp, b, ldb, T(1), a_.at(lr1, c), ld);
       if (polling) poll();
     }
   }
