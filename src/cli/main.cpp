@@ -73,9 +73,12 @@ nlohmann::json grid_json(const process_grid& g) {
 
 // Where a factorization's time went, on the slowest rank for each phase.
 nlohmann::json phases_json(const lu_phases& p) {
-  return {{"panel", p.panel},           {"pivot_search", p.pivot_search},
-          {"interchange", p.interchange}, {"broadcast", p.broadcast},
-          {"trsm", p.trsm},             {"gemm", p.gemm},
+  return {{"panel", p.panel},
+          {"pivot_search", p.pivot_search},
+          {"interchange", p.interchange},
+          {"broadcast", p.broadcast},
+          {"trsm", p.trsm},
+          {"gemm", p.gemm},
           {"wait", p.wait}};
 }
 void print_phases(const lu_phases& p) {

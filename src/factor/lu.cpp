@@ -158,8 +158,13 @@ template <scalar T>
 class blocked_lu {
 public:
   blocked_lu(dist_matrix<T>& a, lu_result& result, const lu_options& options)
-      : a_(a), result_(result), options_(options), rows_(a.layout().rows), cols_(a.layout().cols),
-        myrow_(a.grid().myrow()), mycol_(a.grid().mycol()) {
+      : a_(a),
+        result_(result),
+        options_(options),
+        rows_(a.layout().rows),
+        cols_(a.layout().cols),
+        myrow_(a.grid().myrow()),
+        mycol_(a.grid().mycol()) {
     // Panels follow the distribution's blocks; a resumed factorization may start inside
     // one (it was cut with another block size), whose rest is then the first panel.
     starts_.push_back(result.columns_done);
@@ -211,8 +216,8 @@ public:
 private:
   struct panel {
     index_t j0 = 0, jb = 0;
-    index_t lr0 = 0, mp = 0;  // local rows [lr0, lr0 + mp) are those from j0 down
-    std::vector<T> data;      // those rows of the factored panel, column-major, ld mp
+    index_t lr0 = 0, mp = 0;      // local rows [lr0, lr0 + mp) are those from j0 down
+    std::vector<T> data;          // those rows of the factored panel, column-major, ld mp
     std::vector<index_t> pivots;  // jb pivot rows, then the first zero-pivot column or -1
     comm::request data_sent, pivots_sent;
     bool arrived = false;
@@ -252,8 +257,6 @@ private:
     p.pivots_sent = comm::start_broadcast(row, p.pivots.data(), p.jb + 1, pc);
   }
 
-  // Waits until panel p is here. Its owners need not wait for their sends to finish:
-  // those complete by polling or, at the latest, when the panel is dropped.
   // Applies the interchanges held back from the finished columns: those of every
   // panel since the last settled state, to the columns left of that panel. Deferred,
   // they cost one pass in which each column stays in cache, instead of a few scattered
@@ -264,8 +267,9 @@ private:
     const index_t done = result_.columns_done, nb = a_.block();
     const auto apply = [&](index_t first, column_range local) {
       if (first >= done) return;
-      const auto pivots = std::span(result_.pivots).subspan(static_cast<std::size_t>(first),
-                                                            static_cast<std::size_t>(done - first));
+      const auto pivots =
+          std::span(result_.pivots)
+              .subspan(static_cast<std::size_t>(first), static_cast<std::size_t>(done - first));
       for (index_t c = local.begin; c < local.end; c += nb) {
         const column_range part{c, std::min(local.end, c + nb)};
         detail::interchange_rows(a_, first, pivots, std::span(&part, 1));
@@ -280,6 +284,8 @@ private:
     result_.settled = true;
   }
 
+  // Waits until panel p is here. Its owners need not wait for their sends to finish:
+  // those complete by polling or, at the latest, when the panel is dropped.
   void arrive(panel& p) {
     if (p.arrived || mycol_ == cols_.owner(p.j0)) return;
     const phase_clock clock(result_.phases.wait);

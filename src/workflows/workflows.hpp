@@ -125,7 +125,7 @@ solve_result solve_file(const process_grid& grid, const solve_options& options);
 
 struct resume_options {
   std::string dir;
-  index_t block = 0;   // 0: the default block size
+  index_t block = 0;  // 0: the block size the checkpoint was made with
   int lookahead = default_lookahead;
   std::string output;  // empty: the one recorded in the checkpoint
   bool force = false;
