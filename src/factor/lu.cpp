@@ -37,6 +37,21 @@ constexpr index_t narrow_width = 16;
 // in flight in between: a non-blocking message progresses only inside MPI calls.
 constexpr index_t update_chunk = 512;
 
+// A block of U (rows x cols at `block`, leading dimension ld) solved on process row
+// `root`, made available to the whole process column: returned in place where the
+// column has one rank, else sent down in `buffer` (leading dimension rows).
+template <scalar T>
+std::pair<const T*, index_t> send_down(const communicator& col, int root, const T* block,
+                                       index_t ld, index_t rows, index_t cols,
+                                       std::vector<T>& buffer) {
+  if (col.size() == 1) return {block, ld};
+  buffer.resize(static_cast<std::size_t>(rows * cols));
+  if (col.rank() == root)
+    for (index_t c = 0; c < cols; ++c) std::copy_n(block + c * ld, rows, buffer.data() + c * rows);
+  comm::broadcast(col, buffer.data(), rows * cols, root);
+  return {buffer.data(), rows};
+}
+
 // Recursive factorization of the panel of global columns [j0, j0 + jb) on the process
 // column that owns it (local columns from lc0): the left half, its interchanges on the
 // right half, a triangular solve and one GEMM, then the right half and its interchanges
@@ -74,19 +89,10 @@ private:
     const auto& col = a_.grid().col();
     const int me = a_.grid().myrow(), pr = rows.owner(j);
     const index_t ld = a_.ld(), lr = rows.local_begin(me, j);
-    const T* u = a_.at(lr, right.begin);
-    index_t ldu = ld;
     if (me == pr)
       blas::trsm_left(triangle::lower, diagonal::unit, h, w - h, T(1), a_.at(lr, left.begin), ld,
                       a_.at(lr, right.begin), ld);
-    if (col.size() > 1) {
-      work_.resize(static_cast<std::size_t>(h * (w - h)));
-      if (me == pr)
-        for (index_t c = 0; c < w - h; ++c) std::copy_n(u + c * ld, h, work_.data() + c * h);
-      comm::broadcast(col, work_.data(), h * (w - h), pr);
-      u = work_.data();
-      ldu = h;
-    }
+    const auto [u, ldu] = send_down<T>(col, pr, a_.at(lr, right.begin), ld, h, w - h, work_);
     const index_t lr2 = rows.local_begin(me, j + h), m = a_.local_rows() - lr2;
     blas::gemm(op::none, op::none, m, w - h, h, T(-1), a_.at(lr2, left.begin), ld, u, ldu, T(1),
                a_.at(lr2, right.begin), ld);
@@ -307,7 +313,6 @@ private:
   // in cache for its GEMM, and the rows below start on a chunk while the next is solved.
   void update(const panel& p, column_range target, bool polling) {
     const int pr = rows_.owner(p.j0);
-    const bool sent_down = a_.grid().col().size() > 1;
     {
       const phase_clock clock(result_.phases.interchange);
       detail::interchange_rows(a_, p.j0, pivots_of(p), std::span(&target, 1));
@@ -322,17 +327,10 @@ private:
         const phase_clock clock(result_.phases.trsm);
         blas::trsm_left(triangle::lower, diagonal::unit, p.jb, w, T(1), p.data.data(), p.mp, u, ld);
       }
-      const T* b = u;
-      index_t ldb = ld;
-      if (sent_down) {
+      const auto [b, ldb] = [&] {
         const phase_clock clock(result_.phases.broadcast);
-        urow_.resize(static_cast<std::size_t>(p.jb * w));
-        if (myrow_ == pr)
-          for (index_t k = 0; k < w; ++k) std::copy_n(u + k * ld, p.jb, urow_.data() + k * p.jb);
-        comm::broadcast(a_.grid().col(), urow_.data(), p.jb * w, pr);
-        b = urow_.data();
-        ldb = p.jb;
-      }
+        return send_down<T>(a_.grid().col(), pr, u, ld, p.jb, w, urow_);
+      }();
       const phase_clock clock(result_.phases.gemm);
       blas::gemm(op::none, op::none, m, w, p.jb, T(-1), l, p.mp, b, ldb, T(1), a_.at(lr1, c), ld);
       if (polling) poll();
