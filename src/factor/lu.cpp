@@ -34,8 +34,10 @@ using detail::column_range;
 // Below this many columns the panel recursion goes column by column.
 constexpr index_t narrow_width = 16;
 // The trailing update runs in chunks of this many columns and lets MPI move the panels
-// in flight in between: a non-blocking message progresses only inside MPI calls.
-constexpr index_t update_chunk = 512;
+// in flight in between: a non-blocking message progresses only inside MPI calls. Each
+// GEMM call packs the whole L panel again, which costs about 1/w of the call's work for
+// w columns: 2048 measured 3 % faster than 512 at n = 8192.
+constexpr index_t update_chunk = 2048;
 
 // B = inv(L) B for a unit lower m x m triangle L: halves joined by a GEMM, down to
 // narrow_width rows for the library's TRSM. Single-threaded TRSM with a triangle of a
