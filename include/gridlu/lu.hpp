@@ -52,6 +52,11 @@ struct lu_options {
   // panels update and factor them first and send them while the rest of the matrix is
   // updated, which takes the panel and its broadcast off the critical path.
   int lookahead = 1;
+  // Columns per GEMM call of the trailing update; MPI moves the panels in flight between
+  // calls (a non-blocking message progresses only inside MPI calls). Each call packs
+  // the L panel again, about 1/w of its work for w columns: 2048 measured 3 % faster
+  // than 512 at n = 8192 on 2 ranks.
+  index_t update_columns = 2048;
   // Called on every rank after each block step with the state so far; every rank must
   // return the same.
   std::function<step_request(const lu_result&)> after_step;
