@@ -58,18 +58,23 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
       for (index_t lj = c.begin; lj < c.end; ++lj) f(a.at(0, lj));
   };
   std::vector<int> send_counts(procs, 0), recv_counts(procs, 0);
-  std::vector<T> sent, received;
+  std::vector<T*> out(procs);
+  std::size_t sending = 0;
   for (int p = 0; p < procs; ++p) {
     send_counts[p] = static_cast<int>(send_rows[p].size() * width);
     recv_counts[p] = static_cast<int>(recv_rows[p].size() * width);
-    if (send_rows[p].empty()) continue;
-    for_each_column([&](T* column) {
-      for (const index_t li : send_rows[p]) sent.push_back(column[li]);
-    });
+    sending += static_cast<std::size_t>(send_counts[p]);
   }
-  // Moves within this rank, after packing (a row sent away may be overwritten here).
+  std::vector<T> sent(sending), received;
+  std::size_t offset = 0;
+  for (int p = 0; p < procs; offset += static_cast<std::size_t>(send_counts[p++]))
+    out[p] = sent.data() + offset;
+  // One pass over the columns packs what leaves and then moves what stays (a row sent
+  // away may be overwritten by a move within this rank).
   std::vector<T> held(local_from.size());
   for_each_column([&](T* column) {
+    for (int p = 0; p < procs; ++p)
+      for (const index_t li : send_rows[p]) *out[p]++ = column[li];
     for (std::size_t k = 0; k < local_from.size(); ++k) held[k] = column[local_from[k]];
     for (std::size_t k = 0; k < local_to.size(); ++k) column[local_to[k]] = held[k];
   });
