@@ -11,7 +11,7 @@ namespace gridlu::detail {
 
 template <scalar T>
 void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t> pivots,
-                      std::span<const column_range> columns) {
+                      std::span<const column_range> columns, interchange_buffers<T>& buffers) {
   // Net effect of the sequence: after it, row dest[s] holds what row source[s] held.
   std::vector<index_t> dest, source;
   std::unordered_map<index_t, std::size_t> slot_of;
@@ -65,13 +65,14 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
     recv_counts[p] = static_cast<int>(recv_rows[p].size() * width);
     sending += static_cast<std::size_t>(send_counts[p]);
   }
-  std::vector<T> sent(sending), received;
+  auto& [sent, received, held] = buffers;
+  sent.resize(sending);
   std::size_t offset = 0;
   for (int p = 0; p < procs; offset += static_cast<std::size_t>(send_counts[p++]))
     out[p] = sent.data() + offset;
   // One pass over the columns packs what leaves and then moves what stays (a row sent
   // away may be overwritten by a move within this rank).
-  std::vector<T> held(local_from.size());
+  held.resize(local_from.size());
   for_each_column([&](T* column) {
     for (int p = 0; p < procs; ++p)
       for (const index_t li : send_rows[p]) *out[p]++ = column[li];
@@ -93,7 +94,7 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
 
 #define INSTANTIATE(T)                                                                  \
   template void interchange_rows<T>(dist_matrix<T>&, index_t, std::span<const index_t>, \
-                                    std::span<const column_range>);
+                                    std::span<const column_range>, interchange_buffers<T>&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE
 

@@ -2,6 +2,7 @@
 #pragma once
 
 #include <span>
+#include <vector>
 
 #include "gridlu/matrix.hpp"
 
@@ -16,8 +17,15 @@ struct column_range {
 // the local columns in `columns`. The net permutation is exchanged in one all-to-all
 // over the process column: one message per pair of process rows, not one per row.
 // Collective over a's process column.
+// Message buffers of interchange_rows, kept by the caller across calls: fresh large
+// buffers at every step would be mapped, faulted in and zeroed every time.
+template <scalar T>
+struct interchange_buffers {
+  std::vector<T> sent, received, held;
+};
+
 template <scalar T>
 void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t> pivots,
-                      std::span<const column_range> columns);
+                      std::span<const column_range> columns, interchange_buffers<T>& buffers);
 
 }  // namespace gridlu::detail

@@ -74,8 +74,13 @@ template <scalar T>
 class panel_factorization {
 public:
   panel_factorization(dist_matrix<T>& a, index_t j0, index_t lc0, std::span<index_t> pivots,
-                      double& search_seconds)
-      : a_(a), j0_(j0), lc0_(lc0), pivots_(pivots), search_seconds_(search_seconds) {}
+                      double& search_seconds, detail::interchange_buffers<T>& buffers)
+      : a_(a),
+        j0_(j0),
+        lc0_(lc0),
+        pivots_(pivots),
+        search_seconds_(search_seconds),
+        buffers_(buffers) {}
 
   // Returns the first column with an exactly zero pivot, or -1.
   index_t run() {
@@ -94,7 +99,7 @@ private:
     const index_t h = w / 2;
     columns(j, h);
     const column_range left{lc(j), lc(j + h)}, right{lc(j + h), lc(j + w)};
-    detail::interchange_rows(a_, j, pivots_of(j, h), std::span(&right, 1));
+    detail::interchange_rows(a_, j, pivots_of(j, h), std::span(&right, 1), buffers_);
 
     // U12 = inv(L11) A12 on the process row holding rows [j, j + h) (all in one block),
     // sent down the process column; then A22 -= L21 U12.
@@ -109,7 +114,7 @@ private:
                a_.at(lr2, right.begin), ld);
 
     columns(j + h, w - h);
-    detail::interchange_rows(a_, j + h, pivots_of(j + h, w - h), std::span(&left, 1));
+    detail::interchange_rows(a_, j + h, pivots_of(j + h, w - h), std::span(&left, 1), buffers_);
   }
 
   void narrow(index_t j, index_t w) {
@@ -167,6 +172,7 @@ private:
   index_t j0_, lc0_;
   std::span<index_t> pivots_;
   double& search_seconds_;
+  detail::interchange_buffers<T>& buffers_;
   index_t zero_column_ = -1;
   std::vector<T> pivot_row_, diagonal_row_, work_;
 };
@@ -207,6 +213,11 @@ public:
       // The trailing update of everything beyond the panels in flight (which had it
       // before they were factored).
       update(p, {lc(starts_[last + 1]), a_.local_cols()}, true);
+      {
+        const phase_clock clock(result_.phases.wait);
+        p.data_sent.wait();  // the owner's send, before its buffer is reused
+      }
+      spare_.push_back(std::move(p.data));
       flight_.pop_front();
 
       result_.columns_done = starts_[s + 1];
@@ -253,6 +264,12 @@ private:
     p.jb = starts_[t + 1] - p.j0;
     p.lr0 = rows_.local_begin(myrow_, p.j0);
     p.mp = a_.local_rows() - p.lr0;
+    // A dropped panel's buffer (panels shrink as the factorization goes on) saves
+    // mapping, faulting in and zeroing a fresh one at every step.
+    if (!spare_.empty()) {
+      p.data = std::move(spare_.back());
+      spare_.pop_back();
+    }
     p.data.resize(static_cast<std::size_t>(p.mp * p.jb));
     p.pivots.assign(static_cast<std::size_t>(p.jb + 1), -1);
     const int pc = cols_.owner(p.j0);
@@ -264,7 +281,7 @@ private:
       }
       const phase_clock clock(result_.phases.panel);
       panel_factorization<T> f(a_, p.j0, mine.begin, std::span(p.pivots).first(p.jb),
-                               result_.phases.pivot_search);
+                               result_.phases.pivot_search, buffers_);
       p.pivots[p.jb] = f.run();
       for (index_t c = 0; c < p.jb; ++c)
         std::copy_n(a_.at(p.lr0, mine.begin + c), p.mp, p.data.data() + c * p.mp);
@@ -289,7 +306,7 @@ private:
               .subspan(static_cast<std::size_t>(first), static_cast<std::size_t>(done - first));
       for (index_t c = local.begin; c < local.end; c += nb) {
         const column_range part{c, std::min(local.end, c + nb)};
-        detail::interchange_rows(a_, first, pivots, std::span(&part, 1));
+        detail::interchange_rows(a_, first, pivots, std::span(&part, 1), buffers_);
       }
     };
     // Columns settled before: they lack the pivots from there on.
@@ -326,7 +343,7 @@ private:
     const int pr = rows_.owner(p.j0);
     {
       const phase_clock clock(result_.phases.interchange);
-      detail::interchange_rows(a_, p.j0, pivots_of(p), std::span(&target, 1));
+      detail::interchange_rows(a_, p.j0, pivots_of(p), std::span(&target, 1), buffers_);
     }
     const index_t ld = a_.ld(), lr1 = rows_.local_begin(myrow_, p.j0 + p.jb);
     const index_t m = a_.local_rows() - lr1;
@@ -356,6 +373,8 @@ private:
   std::vector<index_t> starts_;  // panel t is the global columns [starts_[t], starts_[t + 1])
   std::deque<panel> flight_;     // the panels started and not yet applied, oldest first
   std::vector<T> urow_;
+  detail::interchange_buffers<T> buffers_;
+  std::vector<std::vector<T>> spare_;          // buffers of dropped panels, for the next ones
   index_t settled_at_ = result_.columns_done;  // finished columns lack no interchange before it
 };
 

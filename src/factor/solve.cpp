@@ -67,7 +67,8 @@ void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matri
     throw error(exit_code::usage,
                 "solve: right-hand sides must match the factors' order, grid and block size");
   const detail::column_range all[] = {{0, b.local_cols()}};
-  detail::interchange_rows(b, 0, pivots, all);
+  detail::interchange_buffers<T> buffers;
+  detail::interchange_rows(b, 0, pivots, all, buffers);
   sweep(lu, b, triangle::lower);
   sweep(lu, b, triangle::upper);
 }
