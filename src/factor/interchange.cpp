@@ -83,13 +83,15 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
   received.resize(
       static_cast<std::size_t>(std::accumulate(recv_counts.begin(), recv_counts.end(), 0)));
   comm::all_to_all(a.grid().col(), sent.data(), send_counts, received.data(), recv_counts);
-  const T* next = received.data();
-  for (int p = 0; p < procs; ++p) {
-    if (recv_rows[p].empty()) continue;
-    for_each_column([&](T* column) {
-      for (const index_t li : recv_rows[p]) column[li] = *next++;
-    });
-  }
+  // The same pass order as the packing: per column, each source's rows.
+  std::vector<const T*> in(procs);
+  offset = 0;
+  for (int p = 0; p < procs; offset += static_cast<std::size_t>(recv_counts[p++]))
+    in[p] = received.data() + offset;
+  for_each_column([&](T* column) {
+    for (int p = 0; p < procs; ++p)
+      for (const index_t li : recv_rows[p]) column[li] = *in[p]++;
+  });
 }
 
 #define INSTANTIATE(T)                                                                  \
