@@ -154,6 +154,10 @@ void gather(const communicator& c, const T* send, index_t count, T* recv,
 template <class T>
 void scatter(const communicator& c, const T* send, const std::vector<index_t>& counts, T* recv,
              index_t count, int root);
+// Every rank brings its block and gets all blocks concatenated in rank order.
+template <class T>
+void all_gather(const communicator& c, const T* send, index_t count, T* recv,
+                const std::vector<index_t>& counts);
 
 // Every rank brings its own outcome (null if it succeeded). If any rank failed, all
 // ranks throw the same gridlu::error: the code and message of the lowest failing rank.

@@ -32,8 +32,9 @@ void rank1(index_t m, index_t n, T alpha, const T* x, const T* y, T* a, index_t 
 template <scalar T>
 void scale(index_t n, T alpha, T* x);
 
-// LAPACK's LU with partial pivoting of an m x n matrix, used as the reference in tests
-// and benchmarks. ipiv gets min(m, n) 1-based row indices; returns LAPACK's info.
+// LAPACK's LU with partial pivoting of an m x n matrix: the panel of a one-rank process
+// column, and the reference in tests and benchmarks. ipiv gets min(m, n) 1-based row
+// indices; returns LAPACK's info.
 template <scalar T>
 int lapack_getrf(index_t m, index_t n, T* a, index_t lda, std::int32_t* ipiv);
 

@@ -303,6 +303,17 @@ void scatter(const communicator& c, const T* send, const std::vector<index_t>& c
         "MPI_Scatterv");
 }
 
+template <class T>
+void all_gather(const communicator& c, const T* send, index_t count, T* recv,
+                const std::vector<index_t>& counts) {
+  std::vector<int> n;
+  for (index_t v : counts) n.push_back(to_int(v));
+  const auto d = displacements(n);
+  check(MPI_Allgatherv(send, to_int(count), mpi_type<T>(), recv, n.data(), d.data(), mpi_type<T>(),
+                       c.get()),
+        "MPI_Allgatherv");
+}
+
 void agree(const communicator& c, std::exception_ptr mine) {
   exit_code code = exit_code::internal;
   std::string message;
@@ -342,6 +353,8 @@ void agree(const communicator& c, std::exception_ptr mine) {
                           int);                                                                    \
   template void scatter<T>(const communicator&, const T*, const std::vector<index_t>&, T*,         \
                            index_t, int);                                                          \
+  template void all_gather<T>(const communicator&, const T*, index_t, T*,                          \
+                              const std::vector<index_t>&);                                        \
   template request start_broadcast<T>(const communicator&, T*, index_t, int);
 GRIDLU_COMM_TYPES(GRIDLU_COMM_INSTANTIATE)
 #undef GRIDLU_COMM_INSTANTIATE
