@@ -153,6 +153,25 @@ TYPED_TEST(Lu, LookaheadOnGridsWhereRanksOwnNoBlockOfTheLastSteps) {
   }
 }
 
+// Between process rows the row exchanges go in groups of columns sized to stay in
+// cache (about 2^17 cache lines over the rows that move). Blocks of 300 rows move some
+// 400 of them, so groups hold a few hundred columns and the first steps' trailing
+// columns (up to 700) span several groups, with a short last one.
+TYPED_TEST(Lu, RowExchangesInSeveralColumnGroupsMatchLapack) {
+  using T = TypeParam;
+  for (const auto shape : shapes_for_world()) {
+    const process_grid grid(MPI_COMM_WORLD, shape);
+    const index_t n = 1000, nb = 300;
+    SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q);
+    dist_matrix<T> a(grid, n, n, nb);
+    a.fill([&](index_t i, index_t j) { return random_entry<T>(4242, i, j); });
+    const auto original = a.gather();
+    const auto lu = factor(a, with_lookahead(1));
+    const auto ours = a.gather();
+    if (is_root()) expect_lapack_result(original, ours, lu, n);
+  }
+}
+
 // A factorization stopped part-way, moved in its global layout to another grid shape and
 // block size (as a checkpoint is), and continued there, must end with LAPACK's pivots and
 // factors: the state after k columns does not depend on how it was computed. With
