@@ -71,6 +71,13 @@ private:
   std::vector<T> storage_;
 };
 
+// Copies a rows x cols column-major block between leading dimensions (packing a part
+// of a local matrix into a message buffer, or back).
+template <class T>
+void copy_block(index_t rows, index_t cols, const T* from, index_t ld_from, T* to, index_t ld_to) {
+  for (index_t c = 0; c < cols; ++c) std::copy_n(from + c * ld_from, rows, to + c * ld_to);
+}
+
 // The first entry in row-major order that is NaN or infinite, as (row, column), or
 // nothing. Same answer on every rank.
 template <scalar T>

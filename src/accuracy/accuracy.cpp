@@ -41,16 +41,10 @@ void subtract_product(const dist_matrix<T>& a, const dist_matrix<T>& x, dist_mat
     const int pc = inner.block_owner(k), pr = x.layout().rows.block_owner(k);
     left.resize(static_cast<std::size_t>(a.local_rows() * jb));
     right.resize(static_cast<std::size_t>(jb * x.local_cols()));
-    if (grid.mycol() == pc) {
-      const index_t lc = inner.local(j0);
-      for (index_t c = 0; c < jb; ++c)
-        std::copy_n(a.at(0, lc + c), a.local_rows(), left.data() + c * a.local_rows());
-    }
-    if (grid.myrow() == pr) {
-      const index_t lr = x.layout().rows.local(j0);
-      for (index_t c = 0; c < x.local_cols(); ++c)
-        std::copy_n(x.at(lr, c), jb, right.data() + c * jb);
-    }
+    if (grid.mycol() == pc)
+      copy_block(a.local_rows(), jb, a.at(0, inner.local(j0)), a.ld(), left.data(), a.local_rows());
+    if (grid.myrow() == pr)
+      copy_block(jb, x.local_cols(), x.at(x.layout().rows.local(j0), 0), x.ld(), right.data(), jb);
     comm::broadcast(grid.row(), left.data(), static_cast<index_t>(left.size()), pc);
     comm::broadcast(grid.col(), right.data(), static_cast<index_t>(right.size()), pr);
     blas::gemm(blas::op::none, blas::op::none, r.local_rows(), r.local_cols(), jb, T(-1),

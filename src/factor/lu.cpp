@@ -112,9 +112,7 @@ private:
     const index_t ld = a_.ld(), lr = rows.local_begin(me, j);
     if (me == pr) solve_unit_lower(h, w - h, a_.at(lr, left.begin), ld, a_.at(lr, right.begin), ld);
     work_.resize(static_cast<std::size_t>(h * (w - h)));
-    if (me == pr)
-      for (index_t c = 0; c < w - h; ++c)
-        std::copy_n(a_.at(lr, right.begin + c), h, work_.data() + c * h);
+    if (me == pr) copy_block(h, w - h, a_.at(lr, right.begin), ld, work_.data(), h);
     comm::broadcast(col, work_.data(), h * (w - h), pr);
     const index_t lr2 = rows.local_begin(me, j + h), m = a_.local_rows() - lr2;
     blas::gemm(op::none, op::none, m, w - h, h, T(-1), a_.at(lr2, left.begin), ld, work_.data(), h,
@@ -294,14 +292,11 @@ private:
       panel_factorization<T> f(a_, p.j0, mine.begin, std::span(p.pivots).first(p.jb),
                                result_.phases.pivot_search, buffers_);
       p.pivots[p.jb] = f.run();
-      for (index_t c = 0; c < p.jb; ++c)
-        std::copy_n(a_.at(p.lr0, mine.begin + c), p.mp, p.data.data() + c * p.mp);
+      copy_block(p.mp, p.jb, a_.at(p.lr0, mine.begin), a_.ld(), p.data.data(), p.mp);
       if (diagonal > 0) {  // every rank of the column solves a share of the U rows
         const int pr = rows_.owner(p.j0);
         T* l11 = p.data.data() + p.mp * p.jb;
-        if (myrow_ == pr)
-          for (index_t c = 0; c < p.jb; ++c)
-            std::copy_n(p.data.data() + c * p.mp, p.jb, l11 + c * p.jb);
+        if (myrow_ == pr) copy_block(p.jb, p.jb, p.data.data(), p.mp, l11, p.jb);
         comm::broadcast(col, l11, diagonal, pr);
       }
     }
@@ -374,14 +369,9 @@ private:
     for (int q = 0; q < procs; ++q) counts[q] = jb * (w / procs + (q < w % procs ? 1 : 0));
     urow_.resize(static_cast<std::size_t>(jb * w));
     ushare_.resize(static_cast<std::size_t>(counts[me]));
-    const auto copy = [&](bool store) {
-      for (index_t j = 0; j < w; ++j)
-        store ? std::copy_n(urow_.data() + j * jb, jb, u + j * ld)
-              : std::copy_n(u + j * ld, jb, urow_.data() + j * jb);
-    };
     {
       const phase_clock clock(result_.phases.broadcast);
-      if (me == pr) copy(false);
+      if (me == pr) copy_block(jb, w, u, ld, urow_.data(), jb);
       comm::scatter(col, urow_.data(), counts, ushare_.data(), counts[me], pr);
     }
     {
@@ -390,7 +380,7 @@ private:
     }
     const phase_clock clock(result_.phases.broadcast);
     comm::all_gather(col, ushare_.data(), counts[me], urow_.data(), counts);
-    if (me == pr) copy(true);
+    if (me == pr) copy_block(jb, w, urow_.data(), jb, u, ld);
     return {urow_.data(), jb};
   }
 

@@ -36,12 +36,11 @@ void sweep(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part) {
     solved.resize(static_cast<std::size_t>(jb * nrhs));
     if (myrow == pr) {
       diag.resize(static_cast<std::size_t>(jb * jb));
-      if (mycol == pc)
-        for (index_t c = 0; c < jb; ++c) std::copy_n(lu.at(lrk, lck + c), jb, diag.data() + c * jb);
+      if (mycol == pc) copy_block(jb, jb, lu.at(lrk, lck), lu.ld(), diag.data(), jb);
       comm::broadcast(grid.row(), diag.data(), jb * jb, pc);
       blas::trsm_left(part, lower ? diagonal::unit : diagonal::non_unit, jb, nrhs, T(1),
                       diag.data(), jb, b.at(lrk, 0), b.ld());
-      for (index_t c = 0; c < nrhs; ++c) std::copy_n(b.at(lrk, c), jb, solved.data() + c * jb);
+      copy_block(jb, nrhs, b.at(lrk, 0), b.ld(), solved.data(), jb);
     }
     comm::broadcast(grid.col(), solved.data(), jb * nrhs, pr);
 
@@ -49,9 +48,7 @@ void sweep(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part) {
     const index_t first = lower ? rows.local_begin(myrow, j0 + jb) : 0;
     const index_t count = lower ? mloc - first : lrk;
     column.resize(static_cast<std::size_t>(count * jb));
-    if (mycol == pc)
-      for (index_t c = 0; c < jb; ++c)
-        std::copy_n(lu.at(first, lck + c), count, column.data() + c * count);
+    if (mycol == pc) copy_block(count, jb, lu.at(first, lck), lu.ld(), column.data(), count);
     comm::broadcast(grid.row(), column.data(), count * jb, pc);
     blas::gemm(op::none, op::none, count, nrhs, jb, T(-1), column.data(), count, solved.data(), jb,
                T(1), b.at(first, 0), b.ld());
