@@ -15,7 +15,7 @@ struct lu_phases {
   double panel = 0;         // panel factorization, pivot search included
   double pivot_search = 0;  // the reductions that find the pivots, waits for peers included
   double interchange = 0;   // row interchanges outside the panel
-  double broadcast = 0;     // U block rows down the process columns, waits included
+  double broadcast = 0;     // U block rows shared along process columns, waits included
   double trsm = 0;          // U block rows
   double gemm = 0;          // trailing and look-ahead updates
   double wait = 0;          // waiting for a panel from along the process row
