@@ -13,7 +13,7 @@
 namespace gridlu::workflows {
 
 // Default block size; see DEVELOPERS.md for the measurements behind it.
-inline constexpr index_t default_block = 192;
+inline constexpr index_t default_block = 224;
 
 // Default look-ahead depth: one panel ahead hides the panel and its broadcast; deeper
 // only adds memory here (see DEVELOPERS.md).
