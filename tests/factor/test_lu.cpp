@@ -87,6 +87,18 @@ void expect_lapack_result(const std::vector<T>& original, const std::vector<T>& 
   EXPECT_LE(diff, n * epsilon<T>() * max_row_sum(original, n, n));
 }
 
+// Factors a random n x n matrix on the grid and checks the result against LAPACK's.
+template <class T>
+void expect_random_lu_matches_lapack(const process_grid& grid, index_t n, index_t nb,
+                                     std::uint64_t seed, const lu_options& options) {
+  dist_matrix<T> a(grid, n, n, nb);
+  a.fill([&](index_t i, index_t j) { return random_entry<T>(seed, i, j); });
+  const auto original = a.gather();
+  const auto lu = factor(a, options);
+  const auto ours = a.gather();
+  if (is_root()) expect_lapack_result(original, ours, lu, n);
+}
+
 // Depth 1 also cuts the trailing update into GEMM calls of 7 columns, so that the
 // small test matrices take the chunked path too.
 lu_options with_lookahead(int depth) {
@@ -143,12 +155,7 @@ TYPED_TEST(Lu, LookaheadOnGridsWhereRanksOwnNoBlockOfTheLastSteps) {
           const index_t n = (blocks - 1) * nb + (tail == 0 ? nb : tail);
           SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q << " n=" << n
                                             << " look-ahead " << depth);
-          dist_matrix<T> a(grid, n, n, nb);
-          a.fill([&](index_t i, index_t j) { return random_entry<T>(31 + n, i, j); });
-          const auto original = a.gather();
-          const auto lu = factor(a, with_lookahead(depth));
-          const auto ours = a.gather();
-          if (is_root()) expect_lapack_result(original, ours, lu, n);
+          expect_random_lu_matches_lapack<T>(grid, n, nb, 31 + n, with_lookahead(depth));
         }
   }
 }
@@ -161,14 +168,8 @@ TYPED_TEST(Lu, RowExchangesInSeveralColumnGroupsMatchLapack) {
   using T = TypeParam;
   for (const auto shape : shapes_for_world()) {
     const process_grid grid(MPI_COMM_WORLD, shape);
-    const index_t n = 1000, nb = 300;
     SCOPED_TRACE(::testing::Message() << "grid " << shape.p << "x" << shape.q);
-    dist_matrix<T> a(grid, n, n, nb);
-    a.fill([&](index_t i, index_t j) { return random_entry<T>(4242, i, j); });
-    const auto original = a.gather();
-    const auto lu = factor(a, with_lookahead(1));
-    const auto ours = a.gather();
-    if (is_root()) expect_lapack_result(original, ours, lu, n);
+    expect_random_lu_matches_lapack<T>(grid, 1000, 300, 4242, with_lookahead(1));
   }
 }
 
