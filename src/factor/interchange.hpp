@@ -13,10 +13,6 @@ struct column_range {
   index_t begin, end;
 };
 
-// Applies the interchanges row (first + t) <-> row pivots[t], t = 0, 1, ... in order, to
-// the local columns in `columns`. The net permutation is exchanged in one all-to-all
-// over the process column: one message per pair of process rows, not one per row.
-// Collective over a's process column.
 // Message buffers of interchange_rows, kept by the caller across calls: fresh large
 // buffers at every step would be mapped, faulted in and zeroed every time.
 template <scalar T>
@@ -24,6 +20,10 @@ struct interchange_buffers {
   std::vector<T> sent, received, held;
 };
 
+// Applies the interchanges row (first + t) <-> row pivots[t], t = 0, 1, ... in order, to
+// the local columns in `columns`. The net permutation is exchanged in one all-to-all
+// over the process column per group of columns: one message per pair of process rows,
+// not one per row. Collective over a's process column.
 template <scalar T>
 void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t> pivots,
                       std::span<const column_range> columns, interchange_buffers<T>& buffers);

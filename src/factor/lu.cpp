@@ -104,8 +104,8 @@ private:
     detail::interchange_rows(a_, j, pivots_of(j, h), std::span(&right, 1), buffers_);
 
     // U12 = inv(L11) A12 on the process row holding rows [j, j + h) (all in one block),
-    // sent down the process column (of more than one rank: see run()); then
-    // A22 -= L21 U12.
+    // sent down the process column (the recursion runs only on columns of more than one
+    // rank); then A22 -= L21 U12.
     const auto& rows = a_.layout().rows;
     const auto& col = a_.grid().col();
     const int me = a_.grid().myrow(), pr = rows.owner(j);
@@ -365,8 +365,9 @@ private:
       solve_unit_lower(jb, w, p.data.data(), p.mp, u, ld);
       return {u, ld};
     }
+    const auto share = [&](int q) { return w / procs + (q < w % procs ? 1 : 0); };  // columns
     std::vector<index_t> counts(static_cast<std::size_t>(procs));
-    for (int q = 0; q < procs; ++q) counts[q] = jb * (w / procs + (q < w % procs ? 1 : 0));
+    for (int q = 0; q < procs; ++q) counts[q] = jb * share(q);
     urow_.resize(static_cast<std::size_t>(jb * w));
     ushare_.resize(static_cast<std::size_t>(counts[me]));
     {
@@ -376,7 +377,7 @@ private:
     }
     {
       const phase_clock clock(result_.phases.trsm);
-      solve_unit_lower(jb, counts[me] / jb, p.data.data() + p.mp * jb, jb, ushare_.data(), jb);
+      solve_unit_lower(jb, share(me), p.data.data() + p.mp * jb, jb, ushare_.data(), jb);
     }
     const phase_clock clock(result_.phases.broadcast);
     comm::all_gather(col, ushare_.data(), counts[me], urow_.data(), counts);
