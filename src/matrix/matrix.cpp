@@ -1,8 +1,12 @@
 #include "gridlu/matrix.hpp"
 
+#include <sys/mman.h>
+
 #include <cmath>
+#include <cstdlib>
 #include <cstring>
 #include <limits>
+#include <new>
 
 #include "gridlu/generate.hpp"
 #include "instantiate.hpp"
@@ -10,6 +14,31 @@
 #include <complex>
 
 namespace gridlu {
+
+namespace detail {
+
+namespace {
+constexpr std::size_t huge_page = std::size_t{2} << 20;
+}  // namespace
+
+void* allocate_storage(std::size_t bytes) {
+  if (bytes < huge_page) return ::operator new(bytes);
+  const std::size_t rounded = (bytes + huge_page - 1) / huge_page * huge_page;
+  void* p = std::aligned_alloc(huge_page, rounded);
+  if (p == nullptr) throw std::bad_alloc();
+  // Advice only: where transparent huge pages are off, this fails and nothing changes.
+  madvise(p, rounded, MADV_HUGEPAGE);
+  return p;
+}
+
+void release_storage(void* p, std::size_t bytes) noexcept {
+  if (bytes < huge_page)
+    ::operator delete(p);
+  else
+    std::free(p);
+}
+
+}  // namespace detail
 
 template <scalar T>
 dist_matrix<T>::dist_matrix(const process_grid& grid, index_t m, index_t n, index_t nb)
