@@ -251,10 +251,14 @@ public:
   }
 
 private:
+  // On 2 MiB pages: faulting in a fresh panel buffer on 4 KiB pages cost 15-25 ms at
+  // the first steps of an n = 4096-8192 factorization (measured in a VM; page faults are
+  // dear there), several per cent of the whole at n = 4096.
+  using panel_buffer = std::vector<T, detail::storage_allocator<T>>;
   struct panel {
     index_t j0 = 0, jb = 0;
     index_t lr0 = 0, mp = 0;      // local rows [lr0, lr0 + mp) are those from j0 down
-    std::vector<T> data;          // those rows of the factored panel, column-major, ld mp,
+    panel_buffer data;            // those rows of the factored panel, column-major, ld mp,
                                   // then (P > 1) its unit lower triangle L11, ld jb
     std::vector<index_t> pivots;  // jb pivot rows, then the first zero-pivot column or -1
     comm::request data_sent, pivots_sent;
@@ -418,7 +422,7 @@ private:
   std::deque<panel> flight_;     // the panels started and not yet applied, oldest first
   std::vector<T> urow_, ushare_;
   detail::interchange_buffers<T> buffers_;
-  std::vector<std::vector<T>> spare_;          // buffers of dropped panels, for the next ones
+  std::vector<panel_buffer> spare_;            // buffers of dropped panels, for the next ones
   index_t settled_at_ = result_.columns_done;  // finished columns lack no interchange before it
 };
 
