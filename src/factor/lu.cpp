@@ -205,6 +205,11 @@ public:
       j = rows_.block_start(k) + rows_.block_size(k);
       starts_.push_back(j);
     }
+    // The columns finished before have every pivot so far; column groups of at most a
+    // block keep the message buffers of their interchanges O(n nb).
+    const index_t finished = lc(result.columns_done);
+    for (index_t c = 0; c < finished; c += a.block())
+      held_.push_back({{c, std::min(finished, c + a.block())}, result.columns_done});
   }
 
   void run() {
@@ -228,6 +233,8 @@ public:
       }
       spare_.push_back(std::move(p.data));
       flight_.pop_front();
+      // The panel's columns are finished; they lack the pivots after the panel.
+      held_.push_back({{lc(starts_[s]), lc(starts_[s + 1])}, starts_[s + 1]});
 
       result_.columns_done = starts_[s + 1];
       const bool none_ahead = last == s;
@@ -255,6 +262,12 @@ private:
   // the first steps of an n = 4096-8192 factorization (measured in a VM; page faults are
   // dear there), several per cent of the whole at n = 4096.
   using panel_buffer = std::vector<T, detail::storage_allocator<T>>;
+  // Finished columns (no panel of theirs is in flight) and the pivots they have: those
+  // from `applied` to columns_done are held back.
+  struct held_columns {
+    column_range local;
+    index_t applied;
+  };
   struct panel {
     index_t j0 = 0, jb = 0;
     index_t lr0 = 0, mp = 0;      // local rows [lr0, lr0 + mp) are those from j0 down
@@ -313,37 +326,54 @@ private:
     p.pivots_sent = comm::start_broadcast(row, p.pivots.data(), p.jb + 1, pc);
   }
 
-  // Applies the interchanges held back from the finished columns: those of every
-  // panel since the last settled state, to the columns left of that panel. Deferred,
-  // they cost one pass in which each column stays in cache, instead of a few scattered
-  // entries of every finished column at every step. Column groups of at most a block
-  // keep the message buffers O(n nb).
+  // Applies the interchanges held back from the finished columns. Deferred, they cost
+  // one pass in which each column stays in cache, instead of a few scattered entries of
+  // every finished column at every step.
   void settle() {
-    const phase_clock clock(result_.phases.interchange);
-    const index_t done = result_.columns_done, nb = a_.block();
-    const auto apply = [&](index_t first, column_range local) {
-      if (first >= done) return;
-      const auto pivots =
-          std::span(result_.pivots)
-              .subspan(static_cast<std::size_t>(first), static_cast<std::size_t>(done - first));
-      for (index_t c = local.begin; c < local.end; c += nb) {
-        const column_range part{c, std::min(local.end, c + nb)};
-        detail::interchange_rows(a_, first, pivots, std::span(&part, 1), buffers_);
-      }
-    };
-    // Columns settled before: they lack the pivots from there on.
-    apply(settled_at_, {0, lc(settled_at_)});
-    // Columns of the panels since: they lack the pivots after their own panel.
-    for (std::size_t t = 0; t + 1 < starts_.size() && starts_[t + 1] <= done; ++t)
-      if (starts_[t] >= settled_at_) apply(starts_[t + 1], {lc(starts_[t]), lc(starts_[t + 1])});
-    settled_at_ = done;
+    for (auto& h : held_) bring_up_to_date(h);
     result_.settled = true;
+  }
+
+  void bring_up_to_date(held_columns& h) {
+    const index_t done = result_.columns_done;
+    if (h.applied == done) return;
+    const phase_clock clock(result_.phases.interchange);
+    const auto pivots = std::span(result_.pivots)
+                            .subspan(static_cast<std::size_t>(h.applied),
+                                     static_cast<std::size_t>(done - h.applied));
+    detail::interchange_rows(a_, h.applied, pivots, std::span(&h.local, 1), buffers_);
+    h.applied = done;
+  }
+
+  // Brings a few of the finished columns that lack the most interchanges up to date;
+  // false when none lacks any. For the time a panel takes to come (a process column of
+  // one rank only: elsewhere the interchanges are collective, and the ranks of the
+  // column do not wait alike). Small pieces keep the panel's wait from overrunning.
+  bool catch_up() {
+    constexpr index_t piece = 32;  // columns: at most about 0.3 ms of moves at n = 8192
+    const auto most =
+        std::min_element(held_.begin(), held_.end(),
+                         [](const auto& x, const auto& y) { return x.applied < y.applied; });
+    if (most == held_.end() || most->applied == result_.columns_done) return false;
+    const index_t rest = most->local.begin + piece;
+    if (rest < most->local.end) {
+      const held_columns remainder{{rest, most->local.end}, most->applied};
+      most->local.end = rest;
+      bring_up_to_date(*most);
+      held_.push_back(remainder);
+    } else {
+      bring_up_to_date(*most);
+    }
+    return true;
   }
 
   // Waits until panel p is here. Its owners need not wait for their sends to finish:
   // those complete by polling or, at the latest, when the panel is dropped.
   void arrive(panel& p) {
     if (p.arrived || mycol_ == cols_.owner(p.j0)) return;
+    if (a_.grid().col().size() == 1)
+      while (!p.data_sent.test() && catch_up()) {
+      }
     const phase_clock clock(result_.phases.wait);
     p.data_sent.wait();
     p.pivots_sent.wait();
@@ -422,8 +452,8 @@ private:
   std::deque<panel> flight_;     // the panels started and not yet applied, oldest first
   std::vector<T> urow_, ushare_;
   detail::interchange_buffers<T> buffers_;
-  std::vector<panel_buffer> spare_;            // buffers of dropped panels, for the next ones
-  index_t settled_at_ = result_.columns_done;  // finished columns lack no interchange before it
+  std::vector<panel_buffer> spare_;  // buffers of dropped panels, for the next ones
+  std::vector<held_columns> held_;
 };
 
 }  // namespace

@@ -28,7 +28,8 @@ def checkpointed_solve(out, directory, *options):
 
 
 timing = {}
-with suite.case("solve with a checkpoint every 0.06 s, uninterrupted: X, pivots, time so far") as c:
+with suite.case(f"solve with a checkpoint every {float(EVERY) * 60:g} s, uninterrupted: X, pivots, "
+                "time so far") as c:
     ckpt, out = c.dir / "ckpt", c.dir / "x.h5"
     job = Job(suite, checkpointed_solve(out, ckpt), RANKS)
     watch = Watch(ckpt)
