@@ -15,9 +15,9 @@
 namespace gridlu {
 
 namespace detail {
-// Storage of the local parts. Large ones go on 2 MiB pages where the kernel grants them:
-// row interchanges and GEMM packing walk rows across columns, one 4 KiB page per entry
-// with small pages (measured: interchanges 25 % faster at n = 8192 on 2 ranks).
+// Storage of the local parts and panels. Large ones go on 2 MiB pages where the kernel
+// grants them: row interchanges walk rows across columns, one 4 KiB page per entry with
+// small pages, and fresh small pages are slow to fault in (see DEVELOPERS.md).
 void* allocate_storage(std::size_t bytes);
 void release_storage(void* p, std::size_t bytes) noexcept;
 

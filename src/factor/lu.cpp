@@ -39,9 +39,8 @@ constexpr index_t narrow_width = 16;
 constexpr index_t solve_base = 32;
 
 // B = inv(L) B for a unit lower m x m triangle L: halves joined by a GEMM, down to
-// solve_base rows for the library's TRSM, so that most of its flops are GEMM's. In the
-// update of an n = 8192 factorization on 1x2 (nb = 224), the U rows took 0.140 s with
-// a base of 16 rows, 0.119 with 32, 0.118 with 64 and 0.122 with TRSM alone.
+// solve_base rows for the library's TRSM, so that most of its flops are GEMM's (a base
+// of 32 rows beat 16, and TRSM alone, by 3-15 %; figures in DEVELOPERS.md).
 template <scalar T>
 void solve_unit_lower(index_t m, index_t n, const T* l, index_t ldl, T* b, index_t ldb) {
   if (m <= solve_base) {
@@ -258,9 +257,8 @@ public:
   }
 
 private:
-  // On 2 MiB pages: faulting in a fresh panel buffer on 4 KiB pages cost 15-25 ms at
-  // the first steps of an n = 4096-8192 factorization (measured in a VM; page faults are
-  // dear there), several per cent of the whole at n = 4096.
+  // On 2 MiB pages: a fresh panel buffer on 4 KiB pages took 15-25 ms to fault in at
+  // the first steps of an n = 4096-8192 factorization, several per cent at n = 4096.
   using panel_buffer = std::vector<T, detail::storage_allocator<T>>;
   // Finished columns (no panel of theirs is in flight) and the pivots they have: those
   // from `applied` to columns_done are held back.
