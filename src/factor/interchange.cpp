@@ -17,8 +17,8 @@ template <scalar T>
 void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t> pivots,
                       std::span<const column_range> columns, interchange_buffers<T>& buffers) {
   // Net effect of the sequence: after it, row first + i holds what row first + origin[i]
-  // held. Listed by destination, the moves write each column in ascending order, which
-  // settles (thousands of moves per column) about a third faster than pivot order.
+  // held. Listed by destination, the moves write each column in ascending order: a
+  // settle (thousands of moves per column) took about a third less than in pivot order.
   index_t span = static_cast<index_t>(pivots.size());
   for (const index_t r : pivots) span = std::max(span, r - first + 1);
   std::vector<index_t> origin(static_cast<std::size_t>(span));
