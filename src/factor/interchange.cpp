@@ -13,9 +13,8 @@ namespace {
 constexpr std::size_t ways = 4;  // columns moved together
 }  // namespace
 
-template <scalar T>
-void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t> pivots,
-                      std::span<const column_range> columns, interchange_buffers<T>& buffers) {
+interchange_plan plan_interchanges(const cyclic_map& rows, int me, index_t first,
+                                   std::span<const index_t> pivots) {
   // Net effect of the sequence: after it, row first + i holds what row first + origin[i]
   // held. Listed by destination, the moves write each column in ascending order: a
   // settle (thousands of moves per column) took about a third less than in pivot order.
@@ -25,27 +24,43 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
   std::iota(origin.begin(), origin.end(), index_t{0});
   for (std::size_t t = 0; t < pivots.size(); ++t)
     std::swap(origin[t], origin[static_cast<std::size_t>(pivots[t] - first)]);
-  std::vector<std::pair<index_t, index_t>> moves;  // (destination, source), global rows
-  for (index_t i = 0; i < span; ++i)
-    if (origin[i] != i) moves.emplace_back(first + i, first + origin[i]);
-  if (moves.empty()) return;  // the same on every rank of the column
 
-  const auto& rows = a.layout().rows;
-  const int procs = rows.procs(), me = a.grid().myrow();
   // Local row indices of the moves, by who holds the source and who the destination.
-  std::vector<std::vector<index_t>> send_rows(procs), recv_rows(procs);
-  std::vector<index_t> local_from, local_to;
-  for (const auto& [dest, source] : moves) {
+  interchange_plan plan;
+  const int procs = rows.procs();
+  plan.send_rows.resize(procs);
+  plan.recv_rows.resize(procs);
+  for (index_t i = 0; i < span; ++i) {
+    if (origin[i] == i) continue;
+    ++plan.moves;
+    const index_t dest = first + i, source = first + origin[i];
     const int from = rows.owner(source), to = rows.owner(dest);
     if (from == me && to == me) {
-      local_from.push_back(rows.local(source));
-      local_to.push_back(rows.local(dest));
+      plan.local_from.push_back(rows.local(source));
+      plan.local_to.push_back(rows.local(dest));
     } else if (from == me) {
-      send_rows[to].push_back(rows.local(source));
+      plan.send_rows[to].push_back(rows.local(source));
     } else if (to == me) {
-      recv_rows[from].push_back(rows.local(dest));
+      plan.recv_rows[from].push_back(rows.local(dest));
     }
   }
+  for (int p = 0; p < procs; ++p) {
+    const auto &sent = plan.send_rows[p], &received = plan.recv_rows[p];
+    plan.packed_rows.insert(plan.packed_rows.end(), sent.begin(), sent.end());
+    plan.unpacked_rows.insert(plan.unpacked_rows.end(), received.begin(), received.end());
+  }
+  plan.packed_rows.insert(plan.packed_rows.end(), plan.local_from.begin(), plan.local_from.end());
+  plan.packed_rows.insert(plan.packed_rows.end(), plan.local_to.begin(), plan.local_to.end());
+  return plan;
+}
+
+template <scalar T>
+void interchange_rows(dist_matrix<T>& a, const interchange_plan& plan,
+                      std::span<const column_range> columns, interchange_buffers<T>& buffers) {
+  if (plan.moves == 0) return;  // the same on every rank of the column
+  const int procs = a.layout().rows.procs();
+  const auto& [send_rows, recv_rows, local_from, local_to, packed_rows, unpacked_rows, moves] =
+      plan;
   // Everything goes column by column: a column is contiguous, a row is not, and walking
   // rows across all columns costs a cache line and a page per entry.
   std::vector<T*> targets;
@@ -58,7 +73,7 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
   // depends only on what every rank of the column knows, so they agree on it).
   constexpr std::size_t lines_kept = std::size_t{1} << 17;  // 8 MiB of 64-byte lines
   const std::size_t group =
-      procs == 1 ? targets.size() : std::max<std::size_t>(1, lines_kept / moves.size());
+      procs == 1 ? targets.size() : std::max<std::size_t>(1, lines_kept / moves);
   std::vector<int> send_counts(procs), recv_counts(procs);
   std::vector<T*> out(procs);
   std::vector<const T*> in(procs);
@@ -75,13 +90,6 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
       f(part.subspan(j, std::min(ways, part.size() - j)));
     }
   };
-  std::vector<index_t> packed_rows, unpacked_rows;
-  for (int p = 0; p < procs; ++p) {
-    packed_rows.insert(packed_rows.end(), send_rows[p].begin(), send_rows[p].end());
-    unpacked_rows.insert(unpacked_rows.end(), recv_rows[p].begin(), recv_rows[p].end());
-  }
-  packed_rows.insert(packed_rows.end(), local_from.begin(), local_from.end());
-  packed_rows.insert(packed_rows.end(), local_to.begin(), local_to.end());
   held.resize(local_from.size() * ways);
   for (std::size_t g0 = 0; g0 < targets.size(); g0 += group) {
     const auto part = std::span(targets).subspan(g0, std::min(group, targets.size() - g0));
@@ -122,8 +130,8 @@ void interchange_rows(dist_matrix<T>& a, index_t first, std::span<const index_t>
   }
 }
 
-#define INSTANTIATE(T)                                                                  \
-  template void interchange_rows<T>(dist_matrix<T>&, index_t, std::span<const index_t>, \
+#define INSTANTIATE(T)                                                        \
+  template void interchange_rows<T>(dist_matrix<T>&, const interchange_plan&, \
                                     std::span<const column_range>, interchange_buffers<T>&);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE

@@ -427,12 +427,16 @@ private:
     const index_t ld = a_.ld(), lr1 = rows_.local_begin(myrow_, p.j0 + p.jb);
     const index_t m = a_.local_rows() - lr1;
     const T* l = p.data.data() + (lr1 - p.lr0);
+    const auto plan = [&] {
+      const phase_clock clock(result_.phases.interchange);
+      return detail::plan_interchanges(rows_, myrow_, p.j0, pivots_of(p));
+    }();
     for (index_t c = target.begin; c < target.end; c += options_.update_columns) {
       const index_t w = std::min(options_.update_columns, target.end - c);
       {
         const column_range chunk{c, c + w};
         const phase_clock clock(result_.phases.interchange);
-        detail::interchange_rows(a_, p.j0, pivots_of(p), std::span(&chunk, 1), buffers_);
+        detail::interchange_rows(a_, plan, std::span(&chunk, 1), buffers_);
       }
       const auto [b, ldb] = solved_u(p, c, w);
       const phase_clock clock(result_.phases.gemm);
