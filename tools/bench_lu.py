@@ -10,7 +10,8 @@ Each round starts every program once and each factors `--repeat` times in that p
 The medians are over all factorizations after each process's first ("warm": buffers and
 pages in place, as in a long job), and separately over the first ones ("first": what a
 single solve per process pays). Each --variant is a set of extra `gridlu bench` options,
-run in the same rounds.
+run in the same rounds. OpenBLAS picks its kernels for the CPU unless OPENBLAS_CORETYPE
+says otherwise; the script prints the build line that both gridlu and the reference ran.
 """
 import argparse
 import json
@@ -53,6 +54,7 @@ def main():
         for n in args.sizes:
             flops = 2 * n**3 / 3 * 1e-9  # of a real LU, in GFLOP
             gemm, lapack, ours = [], [], {c: [] for c in cases}
+            kernels = set()  # OpenBLAS's build line names the kernels it chose for this CPU
             for _ in range(args.rounds):
                 for g, v in cases:
                     r = run_json(launch + [gridlu, "bench", "--n", str(n), "--grid", g, *block,
@@ -60,14 +62,20 @@ def main():
                                            "--report", report], report)
                     ours[(g, v)].append(r["times"]["factor_runs"])
                     gemm.append(r["gemm_gflops"])
-                lapack.append(run_json([reference, str(n), str(args.ranks), "float64",
-                                        str(args.repeat)])["runs"])
+                    kernels.add(r["versions"]["blas"])
+                ref_run = run_json([reference, str(n), str(args.ranks), "float64",
+                                    str(args.repeat)])
+                lapack.append(ref_run["runs"])
+                kernels.add(ref_run["blas"])
 
             def rates(runs):  # GFLOP/s medians: (warm, first)
                 warm = [flops / t for rs in runs for t in rs[1:]] or [flops / rs[0] for rs in runs]
                 return statistics.median(warm), statistics.median(flops / rs[0] for rs in runs)
 
+            if len(kernels) != 1:
+                sys.exit(f"gridlu and the reference ran different BLAS builds: {kernels}")
             bound = statistics.median(gemm)
+            print(f"BLAS: {kernels.pop()}")
             ref = rates(lapack)
             print(f"n = {n}: GEMM bound {bound:.1f} GFLOP/s; OpenBLAS LU ({args.ranks} threads) "
                   f"warm {ref[0]:.1f} = {ref[0] / bound:.3f} of the bound, "

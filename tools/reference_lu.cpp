@@ -59,6 +59,7 @@ int main(int argc, char** argv) {
   std::printf("%s\n", nlohmann::json{{"n", n},
                                      {"threads", threads},
                                      {"type", type},
+                                     {"blas", gridlu::blas::library_version()},
                                      {"runs", seconds},
                                      {"seconds", median},
                                      {"gflops", flops / median * 1e-9}}
