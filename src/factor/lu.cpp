@@ -6,6 +6,7 @@
 #include <cstdint>
 #include <deque>
 #include <limits>
+#include <optional>
 
 #include "factor/interchange.hpp"
 #include "gridlu/kernels.hpp"
@@ -272,6 +273,7 @@ private:
     panel_buffer data;            // those rows of the factored panel, column-major, ld mp,
                                   // then (P > 1) its unit lower triangle L11, ld jb
     std::vector<index_t> pivots;  // jb pivot rows, then the first zero-pivot column or -1
+    std::optional<detail::interchange_plan> plan;  // of the pivots, once they are here
     comm::request data_sent, pivots_sent;
     bool arrived = false;
   };
@@ -423,20 +425,21 @@ private:
   // Panel p's interchanges on local columns `target`, the block row of U there and the
   // GEMM below it, chunk by chunk: the rows a chunk's interchanges bring into the U
   // block are still in cache for its solve, and the solved chunk for its GEMM.
-  void update(const panel& p, column_range target, bool polling) {
+  void update(panel& p, column_range target, bool polling) {
+    if (target.begin == target.end) return;  // alike on every rank of the process column
     const index_t ld = a_.ld(), lr1 = rows_.local_begin(myrow_, p.j0 + p.jb);
     const index_t m = a_.local_rows() - lr1;
     const T* l = p.data.data() + (lr1 - p.lr0);
-    const auto plan = [&] {
+    if (!p.plan) {  // a panel updates the look-ahead panels and then the rest: plan once
       const phase_clock clock(result_.phases.interchange);
-      return detail::plan_interchanges(rows_, myrow_, p.j0, pivots_of(p));
-    }();
+      p.plan = detail::plan_interchanges(rows_, myrow_, p.j0, pivots_of(p));
+    }
     for (index_t c = target.begin; c < target.end; c += options_.update_columns) {
       const index_t w = std::min(options_.update_columns, target.end - c);
       {
         const column_range chunk{c, c + w};
         const phase_clock clock(result_.phases.interchange);
-        detail::interchange_rows(a_, plan, std::span(&chunk, 1), buffers_);
+        detail::interchange_rows(a_, *p.plan, std::span(&chunk, 1), buffers_);
       }
       const auto [b, ldb] = solved_u(p, c, w);
       const phase_clock clock(result_.phases.gemm);
