@@ -247,11 +247,17 @@ int report_solve(const process_grid& grid, const workflows::solve_result& r,
                        {"checkpoints", r.checkpoints}};
   }
   if (r.stopped) {
-    std::printf(
-        "gridlu: stopped after column %lld of %lld with a checkpoint in %s\n"
-        "resume with: %s\n",
-        static_cast<long long>(r.columns_done), static_cast<long long>(r.n), checkpoint_dir.c_str(),
-        resume_command(grid, checkpoint_dir).c_str());
+    std::printf("gridlu: stopped after column %lld of %lld with a checkpoint in %s\n",
+                static_cast<long long>(r.columns_done), static_cast<long long>(r.n),
+                checkpoint_dir.c_str());
+    // Resumed with the same budget, such a run would again end after about one step.
+    if (r.budget_too_short)
+      std::printf(
+          "gridlu: the time budget ran out at the first block step (reading %.1f s, checkpoint "
+          "write %.1f s, %.1f s in all): --stop-after must allow more than that to make headway\n",
+          r.read_seconds, r.write_seconds, r.total_seconds);
+    std::printf("resume with: %s\n", resume_command(grid, checkpoint_dir).c_str());
+    j["checkpoint"]["budget_too_short"] = r.budget_too_short;
     j.update({{"status", "stopped"},
               {"times",
                {{"read", r.read_seconds},

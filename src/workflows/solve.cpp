@@ -142,8 +142,11 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
   constexpr std::int64_t signal_flag = 1, periodic_flag = 2, budget_flag = 4;
   lu_options lo;
   lo.lookahead = o.lookahead;
+  index_t first_step = -1;        // columns done after this run's first step
+  bool short_from_start = false;  // the budget was exceeded already at that step
   lo.after_step = [&](const lu_result& state) {
     const index_t done = state.columns_done;
+    if (first_step < 0) first_step = done;
     const double now = comm::wtime(), seconds = now - start;
     const double flops = total - lu_flops<T>(static_cast<double>(n - done)) - done_before;
     if (o.progress)
@@ -165,11 +168,13 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
         flags |= budget_flag;
     }
     comm::max(grid.all(), &flags, 1);
+    if (done == first_step && (flags & budget_flag)) short_from_start = true;
     if (flags == 0) return step_request::go_on;
     if (!state.settled) return step_request::settle;  // a checkpoint needs a settled state
     save(state);
     if (flags & (signal_flag | budget_flag)) {
       r.stopped = true;
+      r.budget_too_short = (flags & budget_flag) && short_from_start;
       return step_request::stop;
     }
     return step_request::go_on;

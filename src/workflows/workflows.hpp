@@ -111,6 +111,9 @@ struct solve_result {
   double threshold = 0;  // accepted backward error for the type: 10 n eps
   // Checkpointing: stopped early (by a signal or the time budget) with a checkpoint.
   bool stopped = false;
+  // The time budget ran out at this run's first block step: the fixed costs of a run
+  // (start-up, reading, a checkpoint write) left it no room to make headway.
+  bool budget_too_short = false;
   bool already_complete = false;  // resume of a finished solve: nothing was done
   std::string input, output;      // where A came from, where X is (or will be) written
   index_t columns_done = 0;

@@ -98,6 +98,10 @@ with suite.case("--stop-after shorter than a checkpoint write: exit 5 at the fir
     # The first step, and with the default look-ahead of 1 the one it set going.
     c.check(columns_done(ckpt) <= 2 * BLOCK,
             f"stopped after {columns_done(ckpt)} columns, not at the first step")
+    # A budget that leaves no headway is said so, not only obeyed.
+    said = job.wait().stdout
+    c.check("time budget ran out at the first block step" in said,
+            f"no word that the budget was too short:\n{said}")
 
 # Relative paths, and the printed command run from another directory: what the checkpoint
 # records must not depend on where the solve was started.
