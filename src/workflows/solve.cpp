@@ -2,6 +2,7 @@
 #include <csignal>
 #include <cstdio>
 #include <filesystem>
+#include <optional>
 
 #include "gridlu/accuracy.hpp"
 #include "gridlu/checkpoint.hpp"
@@ -142,11 +143,9 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
   constexpr std::int64_t signal_flag = 1, periodic_flag = 2, budget_flag = 4;
   lu_options lo;
   lo.lookahead = o.lookahead;
-  index_t first_step = -1;        // columns done after this run's first step
-  bool short_from_start = false;  // the budget was exceeded already at that step
+  std::optional<bool> over_at_first_step;  // the budget was exceeded at this run's first step
   lo.after_step = [&](const lu_result& state) {
     const index_t done = state.columns_done;
-    if (first_step < 0) first_step = done;
     const double now = comm::wtime(), seconds = now - start;
     const double flops = total - lu_flops<T>(static_cast<double>(n - done)) - done_before;
     if (o.progress)
@@ -168,13 +167,13 @@ bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_
         flags |= budget_flag;
     }
     comm::max(grid.all(), &flags, 1);
-    if (done == first_step && (flags & budget_flag)) short_from_start = true;
+    if (!over_at_first_step) over_at_first_step = (flags & budget_flag) != 0;
     if (flags == 0) return step_request::go_on;
     if (!state.settled) return step_request::settle;  // a checkpoint needs a settled state
     save(state);
     if (flags & (signal_flag | budget_flag)) {
       r.stopped = true;
-      r.budget_too_short = (flags & budget_flag) && short_from_start;
+      r.budget_too_short = (flags & budget_flag) && *over_at_first_step;
       return step_request::stop;
     }
     return step_request::go_on;
