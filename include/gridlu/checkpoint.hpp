@@ -1,10 +1,16 @@
 // Checkpoints of a factorization: the state after k eliminated columns, stored in its
 // global layout so that any grid and block size can take it up again, written so that a
 // crash at any moment leaves either the previous checkpoint or the new one whole.
+//
+// A checkpoint directory belongs to one job at a time. It holds
+//   lock           locked (flock) by the run using the directory, for its whole life
+//   job.json       the job: what was asked, its inputs' fingerprints, its identity
+//   checkpoint.h5  the factorization's state, tagged with the job's identity
+//   complete.json  written once the job's X is safely stored, tagged alike
+// and nothing else but staging directories of runs killed outright.
 #pragma once
 
 #include <cstdint>
-#include <optional>
 #include <string>
 
 #include "gridlu/lu.hpp"
@@ -12,54 +18,70 @@
 
 namespace gridlu::checkpoint {
 
-// What was asked, so that `resume` can finish it, and the identity of its inputs.
-struct job {
-  std::string input, output, matrix_dataset, rhs_dataset, rhs_file, save_factors;
-  bool column_major = false;
-  std::string type;
-  index_t n = 0, nrhs = 0;
-  index_t block = 0;  // of the run that wrote the checkpoint: resume's default
-  std::int64_t input_size = 0, rhs_size = 0;
-  double input_mtime = 0, rhs_mtime = 0;
-  std::uint64_t a_checksum = 0, b_checksum = 0;  // content_checksum of A and B
-};
-
+// How far a job has come, over all its runs.
 struct progress {
   index_t columns_done = 0;
-  double elapsed_seconds = 0;  // factorization time over all allocations
+  double elapsed_seconds = 0;  // factorization time over all runs
   std::int64_t restarts = 0;   // resumes so far
   std::int64_t checkpoints = 0;
 };
 
-struct header {
-  job what;
+// What a saved state says about itself, read without the matrix.
+struct state_summary {
+  std::string job_id;
+  std::string type;  // scalar_traits<T>::name
+  index_t n = 0;
   progress done;
 };
 
-std::string state_file(const std::string& dir);
+// A checkpoint directory in use by this run. Collective calls throughout; every rank
+// sees the same answers.
+class directory {
+public:
+  // Creates the directory if needed and locks it for the life of the object: another run
+  // holding it is an output error naming the directory. Staging left by runs killed
+  // outright is removed.
+  directory(const process_grid& grid, std::string path);
+  ~directory();  // releases the lock
+  directory(const directory&) = delete;
+  directory& operator=(const directory&) = delete;
 
-// Makes the directory if needed, removes temporaries a killed run left, and refuses
-// (usage error) when the disk cannot hold two checkpoints of `bytes` each.
-void prepare(const process_grid& grid, const std::string& dir, double bytes);
+  const std::string& path() const { return path_; }
+  std::string state_path() const;
 
-// Writes the state: a new file under a temporary name, flushed and synced, read back
-// and checksummed, then renamed over the previous checkpoint. Collective.
-template <scalar T>
-void save(const process_grid& grid, const std::string& dir, const dist_matrix<T>& work,
-          const lu_result& state, const header& h);
+  // job.json's text ("" if absent); replaced whole.
+  std::string job() const;
+  void record_job(const std::string& text) const;
+  // complete.json's text ("" if absent); replaced whole.
+  std::string completion() const;
+  void record_completion(const std::string& text) const;
 
-// Reads the header of DIR's checkpoint; input error if there is none, or it is damaged
-// or not a gridlu checkpoint.
-header load_header(const process_grid& grid, const std::string& dir);
+  bool has_state() const;
+  // Removes the saved state (once the job's X is safely written).
+  void remove_state() const;
+  // Removes everything the previous job left: state, job and completion.
+  void clear() const;
 
-// Reads the working matrix and pivots into `work` (n x n, any block size) and verifies
-// their checksums.
-template <scalar T>
-lu_result load(const process_grid& grid, const std::string& dir, dist_matrix<T>& work);
+  // Output error when the disk cannot hold two states of `bytes` each (the new one is
+  // written before the previous one is replaced).
+  void require_space(double bytes) const;
 
-// After X is written: records that DIR's solve is finished and where X went.
-void mark_complete(const process_grid& grid, const std::string& dir, const std::string& output);
-// X's path if DIR's solve is finished.
-std::optional<std::string> completed(const std::string& dir);
+  // Writes the state: staged, synced, read back against its checksum, renamed over the
+  // previous state.
+  template <scalar T>
+  void save(const dist_matrix<T>& work, const lu_result& state, const progress& done,
+            const std::string& job_id) const;
+  // Reads the saved state's summary; input error when it is damaged or not a checkpoint.
+  state_summary summary() const;
+  // Reads the working matrix and pivots into `work` (n x n, any grid and block size),
+  // checking every field and both checksums; input error when anything is off.
+  template <scalar T>
+  lu_result load(dist_matrix<T>& work) const;
+
+private:
+  const process_grid& grid_;
+  std::string path_;
+  int lock_fd_ = -1;  // rank 0's
+};
 
 }  // namespace gridlu::checkpoint

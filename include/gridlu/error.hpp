@@ -1,4 +1,5 @@
-// Errors and the process exit codes they map to.
+// The errors gridlu throws. Each carries a kind; only the command line maps kinds to
+// process exit codes.
 #pragma once
 
 #include <stdexcept>
@@ -6,23 +7,22 @@
 
 namespace gridlu {
 
-// Exit codes of the `gridlu` command (documented in README.md and --help).
-enum class exit_code : int {
-  ok = 0,
-  internal = 1,
-  usage = 2,
-  input = 3,
-  singular = 4,
-  stopped = 5,
+enum class error_kind : int {
+  internal,  // a bug or an unexpected library failure
+  usage,     // options that cannot work together, or a request refused before any work
+  input,     // missing, damaged or unsuitable input data (files, datasets, checkpoints)
+  output,    // an output or a resource failed: disk full, not writable, out of memory, busy
+  singular,  // the matrix is numerically singular: no solution
+  stopped,   // stopped early on request, with the state saved
 };
 
 class error : public std::runtime_error {
 public:
-  error(exit_code code, const std::string& what) : std::runtime_error(what), code_(code) {}
-  exit_code code() const { return code_; }
+  error(error_kind kind, const std::string& what) : std::runtime_error(what), kind_(kind) {}
+  error_kind kind() const { return kind_; }
 
 private:
-  exit_code code_;
+  error_kind kind_;
 };
 
 }  // namespace gridlu

@@ -81,83 +81,25 @@ private:
 namespace comm {
 
 double wtime();
+// This process's rank in, and the size of, the whole job (MPI_COMM_WORLD).
+int world_rank();
+int world_size();
+// Ends every rank of the job at once with `code`: for failures the ranks cannot agree on.
+[[noreturn]] void abort_job(int code);
 // The MPI library's own description of itself (first line).
 std::string library_version();
 void barrier(const communicator& c);
 
 template <class T>
 void broadcast(const communicator& c, T* data, index_t count, int root);
-
-template <class T>
-void send(const communicator& c, const T* data, index_t count, int dest);
-template <class T>
-void receive(const communicator& c, T* data, index_t count, int source);
+// Root's text on every rank.
+void broadcast(const communicator& c, std::string& text, int root);
 
 // Elementwise reductions in place over all ranks of c (real scalars and index_t).
 template <class T>
 void sum(const communicator& c, T* data, index_t count);
 template <class T>
 void max(const communicator& c, T* data, index_t count);
-
-// Bitwise exclusive or of unsigned 64-bit words (order-independent checksums).
-void bit_xor(const communicator& c, std::uint64_t* data, index_t count);
-
-// Pivot candidate: largest magnitude wins, equal magnitudes go to the smaller row,
-// which is how LAPACK's first-maximum search breaks ties. No candidate: row -1.
-struct candidate {
-  double magnitude;
-  index_t row;
-};
-
-// One reduction per column of a panel: every rank brings its best candidate with that
-// row's `width` entries in pivot_row, and the rank holding the diagonal row brings it in
-// diagonal_row. Every rank returns with the winner, its entries in pivot_row, and the
-// diagonal row's entries in diagonal_row, so both rows of the interchange travel in the
-// message that finds the pivot.
-template <class T>
-candidate best_with_rows(const communicator& c, candidate mine, T* pivot_row, T* diagonal_row,
-                         bool holds_diagonal, index_t width);
-
-// A non-blocking operation in flight. Destruction waits for it: its buffers must
-// outlive it.
-class request {
-public:
-  request() = default;
-  explicit request(MPI_Request r) : r_(r) {}
-  ~request();
-  request(request&& other) noexcept;
-  request& operator=(request&& other) noexcept;
-  request(const request&) = delete;
-  request& operator=(const request&) = delete;
-
-  bool test();  // lets MPI progress it; true once complete
-  void wait();
-
-private:
-  MPI_Request r_ = MPI_REQUEST_NULL;
-};
-
-// Non-blocking broadcast; every rank of c starts it, in the same order as c's other
-// collectives.
-template <class T>
-request start_broadcast(const communicator& c, T* data, index_t count, int root);
-
-// All-to-all with per-rank element counts; displacements follow the rank order.
-template <class T>
-void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts, T* recv,
-                const std::vector<int>& recv_counts);
-
-// Concatenates every rank's block on root, in rank order; counts known on root.
-template <class T>
-void gather(const communicator& c, const T* send, index_t count, T* recv,
-            const std::vector<index_t>& counts, int root);
-template <class T>
-void scatter(const communicator& c, const T* send, const std::vector<index_t>& counts, T* recv,
-             index_t count, int root);
-// Every rank brings its block and gets all blocks concatenated in rank order.
-template <class T>
-void all_gather(const communicator& c, const T* send, index_t count, T* recv,
-                const std::vector<index_t>& counts);
 
 // Every rank brings its own outcome (null if it succeeded). If any rank failed, all
 // ranks throw the same gridlu::error: the code and message of the lowest failing rank.

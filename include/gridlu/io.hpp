@@ -86,13 +86,19 @@ private:
   std::unique_ptr<handles> h_;
 };
 
-// Where a file is and which version of it: enough to notice that it changed.
+// Where a file is and which version of it: enough to notice that it changed, and to
+// tell whether two names reach the same file.
 struct file_identity {
-  std::string path;  // absolute
+  std::string path;  // absolute, symbolic links resolved as far as they exist
+  bool exists = false;
+  std::uint64_t device = 0, inode = 0;
   std::int64_t size = 0;
   double mtime = 0;  // seconds since the epoch
 };
 file_identity identify(const std::string& path);
+// True when both names reach one file: by device and inode where both exist, by their
+// resolved paths otherwise.
+bool same_file(const file_identity& a, const file_identity& b);
 
 // Checksums are stored as text attributes ("0x" and 16 hex digits): 64-bit unsigned
 // integers do not survive every HDF5 reader.

@@ -1,6 +1,6 @@
 #include "gridlu/accuracy.hpp"
 
-#include "gridlu/kernels.hpp"
+#include "kernels/blas.hpp"
 #include "instantiate.hpp"
 
 namespace gridlu {

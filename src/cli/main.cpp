@@ -1,32 +1,59 @@
-// The `gridlu` command: subcommands, options, what rank 0 prints, exit codes.
+// The `gridlu` command: subcommands, options, what rank 0 prints, exit codes. The one
+// place that maps the library's error kinds to process exit codes.
 #include <unistd.h>
 
 #include <CLI/CLI.hpp>
+#include <csignal>
 #include <cstdio>
+#include <cstdlib>
 #include <filesystem>
 #include <fstream>
+#include <functional>
 #include <map>
 #include <memory>
 #include <nlohmann/json.hpp>
 
-#include "gridlu/checkpoint.hpp"
 #include "gridlu/io.hpp"
-#include "gridlu/kernels.hpp"
 #include "gridlu/version.hpp"
+#include "io/staged.hpp"
+#include "kernels/blas.hpp"
+#include "workflows/job.hpp"
+#include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
 namespace {
 
 using namespace gridlu;
 
+int exit_code(error_kind kind) {
+  switch (kind) {
+    case error_kind::usage:
+      return 2;
+    case error_kind::input:
+      return 3;
+    case error_kind::singular:
+      return 4;
+    case error_kind::stopped:
+      return 5;
+    case error_kind::output:
+      return 6;
+    case error_kind::internal:
+      break;
+  }
+  return 1;
+}
+constexpr int stopped_code = 5;
+
 constexpr const char* exit_codes_help =
     "Exit codes: 0 solved, 1 internal error, 2 usage error, 3 input data error,\n"
-    "            4 numerically singular, 5 stopped early with a checkpoint.";
+    "            4 numerically singular, 5 stopped early with a checkpoint,\n"
+    "            6 output or resource failure (disk full, not writable, busy).";
 
 struct common_options {
   std::string grid;  // empty: as square as possible
   int blas_threads = 1;
   std::string report;
+  bool quiet = false, progress = false;
 };
 
 void add_common(CLI::App* cmd, common_options& o) {
@@ -44,142 +71,39 @@ void add_lookahead(CLI::App* cmd, int& depth) {
       ->check(CLI::NonNegativeNumber);
 }
 
+void add_verbosity(CLI::App* cmd, common_options& o) {
+  cmd->add_flag("--quiet", o.quiet, "print nothing but errors");
+  cmd->add_flag("--progress", o.progress,
+                "show factorization progress even when stderr is not a terminal");
+}
+
 process_grid make_grid(const common_options& o) {
-  int ranks = 0;
-  MPI_Comm_size(MPI_COMM_WORLD, &ranks);
   blas::set_threads(o.blas_threads);
-  return process_grid(MPI_COMM_WORLD,
-                      o.grid.empty() ? square_grid_shape(ranks) : parse_grid_shape(o.grid));
+  return process_grid(MPI_COMM_WORLD, o.grid.empty() ? square_grid_shape(comm::world_size())
+                                                     : parse_grid_shape(o.grid));
 }
 
-void write_report(const std::string& path, const nlohmann::json& j) {
-  if (path.empty()) return;
-  std::ofstream out(path);
-  out << j.dump(2) << '\n';
-  if (!out) throw error(exit_code::usage, "cannot write the report " + path);
+// The report: the result's own figures, the grid and the versions of everything that
+// ran. Staged like every output; replaced only if the run may replace outputs.
+void write_report(const process_grid& g, const std::string& path, nlohmann::json j,
+                  io::existing policy = io::existing::replace) {
+  if (path.empty() || g.rank() != 0) return;
+  j.update({{"grid", {g.prows(), g.pcols()}},
+            {"ranks", g.size()},
+            {"version", gridlu::version},
+            {"versions",
+             {{"gridlu", gridlu::version},
+              {"mpi", comm::library_version()},
+              {"blas", blas::library_version()},
+              {"hdf5", io::library_version()}}}});
+  io::write_whole_file(path, j.dump(2) + "\n", policy);
 }
 
-// What every report carries: the grid and the versions of everything that ran.
-nlohmann::json grid_json(const process_grid& g) {
-  return {{"grid", {g.prows(), g.pcols()}},
-          {"ranks", g.size()},
-          {"version", gridlu::version},
-          {"versions",
-           {{"gridlu", gridlu::version},
-            {"mpi", comm::library_version()},
-            {"blas", blas::library_version()},
-            {"hdf5", io::library_version()}}}};
-}
-
-// Where a factorization's time went, on the slowest rank for each phase.
-nlohmann::json phases_json(const lu_phases& p) {
-  return {{"panel", p.panel},
-          {"pivot_search", p.pivot_search},
-          {"interchange", p.interchange},
-          {"broadcast", p.broadcast},
-          {"trsm", p.trsm},
-          {"gemm", p.gemm},
-          {"wait", p.wait}};
-}
 void print_phases(const lu_phases& p) {
   std::printf(
       "  phases (s, slowest rank): panel %.3f (pivot search %.3f) | interchanges %.3f |"
       " broadcasts %.3f | trsm %.3f | gemm %.3f | waiting for panels %.3f\n",
       p.panel, p.pivot_search, p.interchange, p.broadcast, p.trsm, p.gemm, p.wait);
-}
-
-int run_read_bench(const workflows::read_bench_options& o, const common_options& c) {
-  const auto grid = make_grid(c);
-  const auto r = workflows::bench_read(grid, o);
-  if (grid.rank() != 0) return 0;
-  const double median = r.median;
-  std::printf("gridlu bench --read: %s:%s (%.2f GB) into a %dx%d grid, block %lld\n",
-              o.path.c_str(), o.dataset.c_str(), r.bytes * 1e-9, grid.prows(), grid.pcols(),
-              static_cast<long long>(o.block));
-  for (const double t : r.seconds)
-    std::printf("  read %8.3f s   %6.2f GB/s\n", t, r.bytes / t * 1e-9);
-  std::printf("  median %6.3f s   %6.2f GB/s\n", median, r.bytes / median * 1e-9);
-  auto j = grid_json(grid);
-  j.update({{"command", "bench-read"},
-            {"file", o.path},
-            {"dataset", o.dataset},
-            {"bytes", r.bytes},
-            {"block", o.block},
-            {"times", {{"read", median}, {"read_runs", r.seconds}}},
-            {"gbytes_per_second", r.bytes / median * 1e-9}});
-  write_report(c.report, j);
-  return 0;
-}
-
-int run_bench(const workflows::bench_options& o, const common_options& c) {
-  const auto grid = make_grid(c);
-  const auto r = workflows::bench(grid, o);
-  if (grid.rank() != 0) return 0;
-  const double ratio = r.gflops / r.gemm_gflops;
-  std::printf(
-      "gridlu bench: LU of a random %s matrix, n = %lld, block %lld, look-ahead %d, grid %dx%d\n",
-      o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.block), o.lookahead,
-      grid.prows(), grid.pcols());
-  std::printf("  factor time   %10.3f s   (median of %zu)\n", r.factor_median,
-              r.factor_seconds.size());
-  std::printf("  factor rate   %10.2f GFLOP/s\n", r.gflops);
-  std::printf("  GEMM rate     %10.2f GFLOP/s   (order %lld on all %d ranks at once)\n",
-              r.gemm_gflops, static_cast<long long>(r.gemm_order), grid.size());
-  std::printf("  LU / GEMM     %10.3f\n", ratio);
-  const auto& ph = r.phases;
-  print_phases(ph);
-  auto j = grid_json(grid);
-  j.update({{"command", "bench"},
-            {"n", o.n},
-            {"block", o.block},
-            {"lookahead", o.lookahead},
-            {"type", o.type},
-            {"times", {{"factor", r.factor_median}, {"factor_runs", r.factor_seconds}}},
-            {"gflops", r.gflops},
-            {"gemm_gflops", r.gemm_gflops},
-            {"gemm_order", r.gemm_order},
-            {"ratio_to_gemm", ratio},
-            {"phases", phases_json(ph)}});
-  write_report(c.report, j);
-  return 0;
-}
-
-int run_demo(const workflows::demo_options& o, const common_options& c) {
-  const auto grid = make_grid(c);
-  const auto r = workflows::demo(grid, o);
-  const double worst = *std::max_element(r.backward_errors.begin(), r.backward_errors.end());
-  const bool good = worst <= r.threshold && r.first_zero_pivot < 0;
-  if (grid.rank() == 0) {
-    std::printf("gridlu demo: random %s system, n = %lld, %lld right-hand side(s)\n",
-                o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.nrhs));
-    std::printf("  grid %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(), grid.size(),
-                static_cast<long long>(o.block));
-    std::printf("  generate  %9.3f s\n  factor    %9.3f s   %.2f GFLOP/s\n", r.generate_seconds,
-                r.factor_seconds, r.gflops);
-    std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds, r.check_seconds);
-    if (r.first_zero_pivot >= 0)
-      std::printf("  exactly zero pivot in column %lld (0-based, as everywhere in gridlu)\n",
-                  static_cast<long long>(r.first_zero_pivot));
-    std::printf("  backward error, worst of %zu: %.2e (accepted up to 10 n eps = %.2e): %s\n",
-                r.backward_errors.size(), worst, r.threshold, good ? "GOOD" : "POOR");
-    auto j = grid_json(grid);
-    j.update({{"command", "demo"},
-              {"n", o.n},
-              {"nrhs", o.nrhs},
-              {"block", o.block},
-              {"type", o.type},
-              {"times",
-               {{"generate", r.generate_seconds},
-                {"factor", r.factor_seconds},
-                {"solve", r.solve_seconds},
-                {"check", r.check_seconds}}},
-              {"gflops", r.gflops},
-              {"backward_error", worst},
-              {"backward_errors", r.backward_errors},
-              {"status", good ? "solved" : "inaccurate"}});
-    write_report(c.report, j);
-  }
-  return r.first_zero_pivot >= 0 ? static_cast<int>(exit_code::singular) : 0;
 }
 
 // Progress of the factorization on stderr, from rank 0, at most once a second; on a
@@ -200,145 +124,324 @@ workflows::progress_callback progress_printer() {
   };
 }
 
-struct solve_cli {
-  workflows::solve_options options;
-  bool quiet = false, progress = false;
-};
-
-struct resume_cli {
-  workflows::resume_options options;
-  bool quiet = false, progress = false;
-};
-
-workflows::progress_callback progress_if(const process_grid& grid, bool quiet, bool forced) {
-  if (grid.rank() == 0 && !quiet && (forced || isatty(fileno(stderr)))) return progress_printer();
-  return {};
+// What a run of a solve job needs from the command line: where to report, what to say.
+workflows::run_settings run_settings_for(const process_grid& grid, const common_options& c,
+                                         double started) {
+  workflows::run_settings run;
+  run.started = started;
+  run.report = c.report;
+  const bool speaks = grid.rank() == 0 && !c.quiet;
+  if (speaks && (c.progress || isatty(fileno(stderr)))) run.progress = progress_printer();
+  if (grid.rank() == 0)
+    run.notice = [](const std::string& text) {
+      std::printf("gridlu: %s\n", text.c_str());
+      std::fflush(stdout);
+    };
+  return run;
 }
 
-// The command that continues a stopped solve: this program, these ranks, that directory.
+// The launcher this rank was started by, where it can be told: the parent process's
+// name, then the environment a Slurm step sets.
+std::string launcher_prefix(int ranks) {
+  std::ifstream comm_file("/proc/" + std::to_string(getppid()) + "/comm");
+  std::string parent;
+  std::getline(comm_file, parent);
+  if (parent == "slurmstepd") return "srun ";
+  if (parent == "mpiexec" || parent == "mpirun" || parent == "orterun" || parent == "orted" ||
+      parent == "prterun" || parent == "hydra_pmi_proxy")
+    return "mpiexec -n " + std::to_string(ranks) + " ";
+  if (std::getenv("SLURM_STEP_ID")) return "srun ";
+  return ranks > 1 ? "mpiexec -n " + std::to_string(ranks) + " " : "";
+}
+
+// The command that continues a stopped solve: this program, that directory.
 std::string resume_command(const process_grid& grid, const std::string& dir) {
   std::error_code ec;
   auto self = std::filesystem::read_symlink("/proc/self/exe", ec).string();
   if (ec) self = "gridlu";
-  return "mpiexec -n " + std::to_string(grid.size()) + " " + self + " resume " +
-         std::filesystem::absolute(dir).string();
+  return launcher_prefix(grid.size()) + self + " resume " + dir;
+}
+
+void print_stopped(const process_grid& grid, const workflows::solve_result& r) {
+  const auto& j = r.what;
+  std::printf("gridlu: stopped after column %lld of %lld with a checkpoint in %s\n",
+              static_cast<long long>(r.columns_done), static_cast<long long>(j.n),
+              j.checkpoint_dir.c_str());
+  // Resumed with the same budget, such a run would again end after about one step.
+  if (r.budget_too_short)
+    std::printf(
+        "gridlu: the time budget ran out at the first block step (reading %.1f s, checkpoint "
+        "write %.1f s, %.1f s in all): --stop-after must allow more than that to make headway\n",
+        r.read_seconds, r.write_seconds, r.total_seconds);
+  std::printf("resume with: %s\n", resume_command(grid, j.checkpoint_dir).c_str());
+}
+
+void print_solved(const process_grid& grid, const workflows::solve_result& r) {
+  const auto& j = r.what;
+  std::printf("gridlu solve  %s -> %s\n", j.input.c_str(), j.output.c_str());
+  std::printf("  system     n = %lld, %lld right-hand side(s), %s\n", static_cast<long long>(j.n),
+              static_cast<long long>(j.nrhs), j.type.c_str());
+  std::printf("  grid       %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
+              grid.size(), static_cast<long long>(j.block));
+  std::printf(
+      "  time       read %.2f s | %s %.2f s | solve %.2f s | check %.2f s | write %.2f s"
+      " | total %.2f s\n",
+      r.read_seconds, r.refactored ? "factor" : "factor (saved)", r.factor_seconds, r.solve_seconds,
+      r.check_seconds, r.write_seconds, r.total_seconds);
+  if (r.refactored) std::printf("  speed      %.2f GFLOP/s in the factorization\n", r.gflops);
+  if (!j.checkpoint_dir.empty())
+    std::printf(
+        "  checkpoint %s: %lld written, %lld restart(s), %.1f s of factorization in all runs%s\n",
+        j.checkpoint_dir.c_str(), static_cast<long long>(r.checkpoints),
+        static_cast<long long>(r.restarts), r.factor_seconds_total,
+        r.state_removed ? "; working state removed, X is written" : "");
+  std::printf("  accuracy   worst backward error %.2e (accepted up to 10 n eps = %.2e): %s\n",
+              r.worst_backward_error(), r.threshold, r.accepted() ? "ACCEPTED" : "SUSPECT");
 }
 
 // What rank 0 says after a solve or a resume, and the exit code.
 int report_solve(const process_grid& grid, const workflows::solve_result& r,
-                 const std::string& checkpoint_dir, bool quiet, const common_options& c) {
-  if (grid.rank() != 0) return r.stopped ? static_cast<int>(exit_code::stopped) : 0;
-  auto j = grid_json(grid);
-  j.update({{"command", "solve"},
-            {"input", r.input},
-            {"output", r.output},
-            {"n", r.n},
-            {"nrhs", r.nrhs},
-            {"type", r.type},
-            {"block", r.block}});
-  if (!checkpoint_dir.empty()) {
-    const double total = lu_flops<double>(static_cast<double>(r.n));
-    const double left = lu_flops<double>(static_cast<double>(r.n - r.columns_done));
-    j["checkpoint"] = {{"dir", checkpoint_dir},
-                       {"columns_done", r.columns_done},
-                       {"flops_done_percent", r.n ? 100.0 * (1.0 - left / total) : 0.0},
-                       {"factor_seconds_all_runs", r.factor_seconds_total},
-                       {"restarts", r.restarts},
-                       {"checkpoints", r.checkpoints}};
-  }
-  if (r.stopped) {
-    std::printf("gridlu: stopped after column %lld of %lld with a checkpoint in %s\n",
-                static_cast<long long>(r.columns_done), static_cast<long long>(r.n),
-                checkpoint_dir.c_str());
-    // Resumed with the same budget, such a run would again end after about one step.
-    if (r.budget_too_short)
-      std::printf(
-          "gridlu: the time budget ran out at the first block step (reading %.1f s, checkpoint "
-          "write %.1f s, %.1f s in all): --stop-after must allow more than that to make headway\n",
-          r.read_seconds, r.write_seconds, r.total_seconds);
-    std::printf("resume with: %s\n", resume_command(grid, checkpoint_dir).c_str());
-    j["checkpoint"]["budget_too_short"] = r.budget_too_short;
-    j.update({{"status", "stopped"},
-              {"times",
-               {{"read", r.read_seconds},
-                {"factor", r.factor_seconds},
-                {"write", r.write_seconds},
-                {"total", r.total_seconds}}},
-              {"phases", phases_json(r.phases)}});
-    write_report(c.report, j);
-    return static_cast<int>(exit_code::stopped);
-  }
-  const double worst = *std::max_element(r.backward_errors.begin(), r.backward_errors.end());
-  const bool accepted = worst <= r.threshold;
-  if (!quiet) {
-    std::printf("gridlu solve  %s -> %s\n", r.input.c_str(), r.output.c_str());
-    std::printf("  system     n = %lld, %lld right-hand side(s), %s\n", static_cast<long long>(r.n),
-                static_cast<long long>(r.nrhs), r.type.c_str());
-    std::printf("  grid       %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
-                grid.size(), static_cast<long long>(r.block));
-    std::printf(
-        "  time       read %.2f s | %s %.2f s | solve %.2f s | check %.2f s | write %.2f s"
-        " | total %.2f s\n",
-        r.read_seconds, r.refactored ? "factor" : "factor (saved)", r.factor_seconds,
-        r.solve_seconds, r.check_seconds, r.write_seconds, r.total_seconds);
-    if (r.refactored) std::printf("  speed      %.2f GFLOP/s in the factorization\n", r.gflops);
-    if (!checkpoint_dir.empty())
-      std::printf(
-          "  checkpoint %s: %lld written, %lld restart(s), %.1f s of factorization in all runs\n",
-          checkpoint_dir.c_str(), static_cast<long long>(r.checkpoints),
-          static_cast<long long>(r.restarts), r.factor_seconds_total);
-    std::printf("  accuracy   worst backward error %.2e (accepted up to 10 n eps = %.2e): %s\n",
-                worst, r.threshold, accepted ? "ACCEPTED" : "SUSPECT");
-  }
-  j.update({{"refactored", r.refactored},
-            {"times",
-             {{"read", r.read_seconds},
-              {"factor", r.factor_seconds},
-              {"solve", r.solve_seconds},
-              {"check", r.check_seconds},
-              {"write", r.write_seconds},
-              {"total", r.total_seconds}}},
-            {"gflops", r.gflops},
-            {"phases", phases_json(r.phases)},
-            {"backward_error", worst},
-            {"backward_errors", r.backward_errors},
-            {"threshold", r.threshold},
-            {"status", accepted ? "solved" : "suspect"}});
-  write_report(c.report, j);
-  return 0;
-}
-
-int run_solve(solve_cli& s, const common_options& c) {
-  const auto grid = make_grid(c);
-  auto& o = s.options;
-  o.progress = progress_if(grid, s.quiet, s.progress);
-  const auto r = workflows::solve_file(grid, o);
-  return report_solve(grid, r, o.checkpoint_dir, s.quiet, c);
-}
-
-int run_resume(resume_cli& s, const common_options& c) {
-  const auto grid = make_grid(c);
-  auto& o = s.options;
-  o.progress = progress_if(grid, s.quiet, s.progress);
-  const auto r = workflows::resume_dir(grid, o);
+                 const common_options& c) {
+  const int code = r.stopped ? stopped_code : 0;
+  if (grid.rank() != 0) return code;
   if (r.already_complete) {
-    if (grid.rank() == 0)
-      std::printf("gridlu: the solve in %s is complete; X is in %s (nothing to do)\n",
-                  o.dir.c_str(), r.output.c_str());
+    std::printf("gridlu: the job in %s is complete; its X is in %s (nothing to do)\n",
+                r.what.checkpoint_dir.c_str(), r.what.output.c_str());
     return 0;
   }
-  return report_solve(grid, r, o.dir, s.quiet, c);
+  if (r.stopped)
+    print_stopped(grid, r);
+  else if (!c.quiet)
+    print_solved(grid, r);
+  std::fflush(stdout);
+  write_report(grid, c.report, r.json(),
+               r.what.force ? io::existing::replace : io::existing::refuse);
+  return code;
 }
 
-int run_generate(const workflows::generate_options& o, const common_options& c) {
-  const auto grid = make_grid(c);
-  workflows::generate_file(grid, o);
-  if (grid.rank() == 0)
-    std::printf(
-        "gridlu generate: random %s system, n = %lld, %lld right-hand side(s), seed %llu -> %s\n",
-        o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.nrhs),
-        static_cast<unsigned long long>(o.seed), o.output.c_str());
-  return 0;
+// Each subcommand: its options, bound to values that live as long as the program, and
+// what runs when it is chosen.
+struct subcommand {
+  CLI::App* app;
+  std::function<int()> run;
+};
+
+subcommand add_bench(CLI::App& app, double) {
+  auto c = std::make_shared<common_options>();
+  auto o = std::make_shared<workflows::bench_options>();
+  auto read = std::make_shared<workflows::read_bench_options>();
+  auto* cmd = app.add_subcommand(
+      "bench",
+      "time the LU of a generated matrix in memory against the GEMM rate of the same ranks");
+  cmd->add_option("--n", o->n, "order of the matrix")->capture_default_str();
+  cmd->add_option("--block", o->block, "block size nb")->capture_default_str();
+  add_lookahead(cmd, o->lookahead);
+  cmd->add_option("--type", o->type, "float32, float64, complex64 or complex128")
+      ->capture_default_str();
+  cmd->add_option("--seed", o->seed, "seed of the generated matrix")->capture_default_str();
+  cmd->add_option("--repeat", o->repeat, "factorizations to time (median is reported)")
+      ->capture_default_str();
+  cmd->add_option("--read", read->path,
+                  "instead: time reading a dataset of this HDF5 file into the grid");
+  cmd->add_option("--dataset", read->dataset, "with --read: the dataset")->capture_default_str();
+  cmd->add_flag("--column-major", read->column_major,
+                "with --read: the dataset holds the transpose");
+  add_common(cmd, *c);
+  cmd->footer(
+      "Examples:\n  mpiexec -n 2 gridlu bench --n 8192 --grid 1x2 --repeat 3\n"
+      "  mpiexec -n 2 gridlu bench --read system.h5 --repeat 3");
+  return {cmd, [=] {
+            const auto grid = make_grid(*c);
+            if (!read->path.empty()) {
+              read->block = o->block;
+              read->repeat = o->repeat;
+              const auto r = workflows::bench_read(grid, *read);
+              if (grid.rank() != 0) return 0;
+              std::printf("gridlu bench --read: %s:%s (%.2f GB) into a %dx%d grid, block %lld\n",
+                          read->path.c_str(), read->dataset.c_str(), r.bytes * 1e-9, grid.prows(),
+                          grid.pcols(), static_cast<long long>(read->block));
+              for (const double t : r.seconds)
+                std::printf("  read %8.3f s   %6.2f GB/s\n", t, r.bytes / t * 1e-9);
+              std::printf("  median %6.3f s   %6.2f GB/s\n", r.median, r.bytes / r.median * 1e-9);
+              write_report(grid, c->report, r.json(*read));
+              return 0;
+            }
+            const auto r = workflows::bench(grid, *o);
+            if (grid.rank() != 0) return 0;
+            std::printf(
+                "gridlu bench: LU of a random %s matrix, n = %lld, block %lld, look-ahead %d, "
+                "grid %dx%d\n",
+                o->type.c_str(), static_cast<long long>(o->n), static_cast<long long>(o->block),
+                o->lookahead, grid.prows(), grid.pcols());
+            std::printf("  factor time   %10.3f s   (median of %zu)\n", r.factor_median,
+                        r.factor_seconds.size());
+            std::printf("  factor rate   %10.2f GFLOP/s\n", r.gflops);
+            std::printf("  GEMM rate     %10.2f GFLOP/s   (order %lld on all %d ranks at once)\n",
+                        r.gemm_gflops, static_cast<long long>(r.gemm_order), grid.size());
+            std::printf("  LU / GEMM     %10.3f\n", r.gflops / r.gemm_gflops);
+            print_phases(r.phases);
+            write_report(grid, c->report, r.json(*o));
+            return 0;
+          }};
+}
+
+subcommand add_demo(CLI::App& app, double) {
+  auto c = std::make_shared<common_options>();
+  auto o = std::make_shared<workflows::demo_options>();
+  auto* cmd =
+      app.add_subcommand("demo", "solve a generated random system and report its backward error");
+  cmd->add_option("--n", o->n, "number of unknowns")->capture_default_str();
+  cmd->add_option("--rhs", o->nrhs, "number of right-hand sides")->capture_default_str();
+  cmd->add_option("--block", o->block, "block size nb")->capture_default_str();
+  add_lookahead(cmd, o->lookahead);
+  cmd->add_option("--type", o->type, "float32, float64, complex64 or complex128")
+      ->capture_default_str();
+  cmd->add_option("--seed", o->seed, "seed of the generated system")->capture_default_str();
+  add_common(cmd, *c);
+  cmd->footer("Example:\n  mpiexec -n 2 gridlu demo --n 3000 --rhs 4\n\n" +
+              std::string(exit_codes_help));
+  return {
+      cmd, [=] {
+        const auto grid = make_grid(*c);
+        const auto r = workflows::demo(grid, *o);
+        if (grid.rank() == 0) {
+          std::printf("gridlu demo: random %s system, n = %lld, %lld right-hand side(s)\n",
+                      o->type.c_str(), static_cast<long long>(o->n),
+                      static_cast<long long>(o->nrhs));
+          std::printf("  grid %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
+                      grid.size(), static_cast<long long>(o->block));
+          std::printf("  generate  %9.3f s\n  factor    %9.3f s   %.2f GFLOP/s\n",
+                      r.generate_seconds, r.factor_seconds, r.gflops);
+          std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds,
+                      r.check_seconds);
+          if (r.first_zero_pivot >= 0)
+            std::printf("  exactly zero pivot in column %lld (0-based, as everywhere in gridlu)\n",
+                        static_cast<long long>(r.first_zero_pivot));
+          std::printf("  backward error, worst of %zu: %.2e (accepted up to 10 n eps = %.2e): %s\n",
+                      r.backward_errors.size(), r.worst_backward_error(), r.threshold,
+                      r.accepted() ? "GOOD" : "POOR");
+          std::fflush(stdout);
+          write_report(grid, c->report, r.json(*o));
+        }
+        return r.first_zero_pivot >= 0 ? exit_code(error_kind::singular) : 0;
+      }};
+}
+
+subcommand add_solve(CLI::App& app, double started) {
+  auto c = std::make_shared<common_options>();
+  auto o = std::make_shared<workflows::solve_options>();
+  auto* cmd = app.add_subcommand("solve", "solve A X = B read from an HDF5 file, write X");
+  cmd->add_option("input", o->input, "HDF5 file with A (and B)")->required();
+  cmd->add_option("--out", o->output, "HDF5 file to write X to")->required();
+  cmd->add_option("--matrix-dataset", o->matrix_dataset, "name of A in INPUT")
+      ->capture_default_str();
+  cmd->add_option("--rhs-dataset", o->rhs_dataset, "name of B")->capture_default_str();
+  cmd->add_option("--rhs-file", o->rhs_file, "read B from this file instead of INPUT");
+  cmd->add_option("--block", o->block, "block size nb")->capture_default_str();
+  add_lookahead(cmd, o->lookahead);
+  cmd->add_flag("--column-major", o->column_major,
+                "A's dataset holds the transpose (element [i][j] is A(j, i)), as column-major "
+                "writers store it");
+  cmd->add_option("--save-factors", o->save_factors, "also write the LU factors to this file");
+  cmd->add_option("--factors", o->factors, "solve with factors saved earlier instead of factoring");
+  cmd->add_flag("--force", o->force,
+                "replace existing outputs (OUTPUT, --save-factors, --report), and discard "
+                "another job's checkpoint in the --checkpoint directory; never an input");
+  add_verbosity(cmd, *c);
+  cmd->add_option("--checkpoint", o->checkpoint_dir,
+                  "keep checkpoints in this directory (locked while the run lasts); SIGTERM, "
+                  "SIGUSR1 and SIGINT then stop with a checkpoint (exit 5)");
+  cmd->add_option("--checkpoint-every", o->checkpoint_every, "minutes between checkpoints")
+      ->check(CLI::NonNegativeNumber);
+  cmd->add_option("--stop-after", o->stop_after,
+                  "time budget in minutes: stop with a checkpoint early enough to end inside it")
+      ->check(CLI::NonNegativeNumber);
+  add_common(cmd, *c);
+  cmd->footer(
+      "Examples:\n"
+      "  mpiexec -n 4 gridlu solve plate.h5 --out charges.h5\n"
+      "  mpiexec -n 4 gridlu solve plate.h5 --out x.h5 --save-factors plate-lu.h5\n"
+      "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out "
+      "x2.h5\n"
+      "  mpiexec -n 64 gridlu solve big.h5 --out x.h5 --checkpoint ckpt --checkpoint-every 30 "
+      "--stop-after 710\n\n" +
+      std::string(exit_codes_help));
+  return {cmd, [=] {
+            const auto grid = make_grid(*c);
+            auto options = *o;
+            options.checkpoint_every *= 60;
+            options.stop_after *= 60;
+            options.report = c->report;
+            auto run = run_settings_for(grid, *c, started);
+            run.stop_after = options.stop_after;
+            return report_solve(grid, workflows::solve_file(grid, options, run), *c);
+          }};
+}
+
+subcommand add_resume(CLI::App& app, double started) {
+  auto c = std::make_shared<common_options>();
+  auto o = std::make_shared<workflows::resume_options>();
+  auto stop_after = std::make_shared<double>(0);
+  auto every = std::make_shared<double>(-1);
+  auto* cmd = app.add_subcommand(
+      "resume", "continue (or finish) a checkpointed solve, on any number of ranks");
+  cmd->add_option("dir", o->dir, "the solve's checkpoint directory")->required();
+  cmd->add_option("--block", o->block,
+                  "block size nb (default: the one the job was started with; any works)");
+  cmd->add_option("--lookahead", o->lookahead,
+                  "panels factored ahead of the trailing update (default: the job's)")
+      ->check(CLI::NonNegativeNumber);
+  cmd->add_option("--out", o->output, "write X here instead of the job's OUTPUT");
+  cmd->add_flag("--force", o->force, "replace existing outputs even if the job did not ask to");
+  cmd->add_option("--checkpoint-every", *every, "minutes between checkpoints (default: the job's)")
+      ->check(CLI::NonNegativeNumber);
+  cmd->add_option("--stop-after", *stop_after, "time budget in minutes")
+      ->check(CLI::NonNegativeNumber);
+  add_verbosity(cmd, *c);
+  add_common(cmd, *c);
+  cmd->footer(
+      "The job (inputs, outputs, options, --force included) is recorded in DIR: resume needs\n"
+      "none of the first run's options.\n\n"
+      "Example:\n  mpiexec -n 128 gridlu resume ckpt --stop-after 710\n\n" +
+      std::string(exit_codes_help));
+  return {cmd, [=] {
+            const auto grid = make_grid(*c);
+            auto options = *o;
+            options.checkpoint_every = *every < 0 ? -1 : *every * 60;
+            auto run = run_settings_for(grid, *c, started);
+            run.stop_after = *stop_after * 60;
+            return report_solve(grid, workflows::resume_dir(grid, options, run), *c);
+          }};
+}
+
+subcommand add_generate(CLI::App& app, double) {
+  auto c = std::make_shared<common_options>();
+  auto o = std::make_shared<workflows::generate_options>();
+  auto* cmd = app.add_subcommand("generate", "write a test system to an HDF5 file");
+  cmd->require_subcommand(1);
+  auto* random = cmd->add_subcommand(
+      "random", "random A and B, entries uniform in [-1, 1), the same on any number of ranks");
+  random->add_option("--n", o->n, "number of unknowns")->required();
+  random->add_option("--out", o->output, "HDF5 file to write")->required();
+  random->add_option("--rhs", o->nrhs, "number of right-hand sides")->capture_default_str();
+  random->add_option("--type", o->type, "float32, float64, complex64 or complex128")
+      ->capture_default_str();
+  random->add_option("--seed", o->seed, "seed")->capture_default_str();
+  random->add_flag("--force", o->force, "replace the file if it exists");
+  add_common(random, *c);
+  random->footer(
+      "Example:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5");
+  return {cmd, [=] {
+            const auto grid = make_grid(*c);
+            workflows::generate_file(grid, *o);
+            if (grid.rank() == 0)
+              std::printf(
+                  "gridlu generate: random %s system, n = %lld, %lld right-hand side(s), seed "
+                  "%llu -> %s\n",
+                  o->type.c_str(), static_cast<long long>(o->n), static_cast<long long>(o->nrhs),
+                  static_cast<unsigned long long>(o->seed), o->output.c_str());
+            return 0;
+          }};
 }
 
 std::string dims_text(const std::vector<index_t>& dims) {
@@ -348,44 +451,48 @@ std::string dims_text(const std::vector<index_t>& dims) {
   return t;
 }
 
-// Progress of a checkpointed solve, from its directory.
-void checkpoint_summary(const std::string& dir) {
-  const auto state = checkpoint::state_file(dir);
-  if (!std::filesystem::exists(state)) throw error(exit_code::input, "no checkpoint in " + dir);
-  std::map<std::string, std::string> a;
-  for (const auto& [k, v] : io::describe(state).attributes) a[k] = v;
-  if (a["gridlu_kind"] != "checkpoint")
-    throw error(exit_code::input, state + " is not a gridlu checkpoint");
-  const auto number = [&](const std::string& key) {
-    try {
-      return std::stod(a.at(key));
-    } catch (const std::exception&) {
-      throw error(exit_code::input, state + " is damaged: no valid " + key);
-    }
-  };
-  const double n = number("n"), k = number("columns_done");
-  const double percent = 100.0 * (1.0 - lu_flops<double>(n - k) / lu_flops<double>(n));
-  std::printf("checkpoint %s\n", dir.c_str());
-  std::printf("solve      %s -> %s (%s, n = %s)\n", a["input"].c_str(), a["output"].c_str(),
-              a["type"].c_str(), a["n"].c_str());
-  std::printf("progress   %s of %s columns eliminated, %.1f %% of the flops\n",
-              a["columns_done"].c_str(), a["n"].c_str(), percent);
-  std::printf("time       %s s of factorization over all runs\n", a["elapsed_seconds"].c_str());
-  std::printf("restarts   %s\ncheckpoints %s written\n", a["restarts"].c_str(),
-              a["checkpoints"].c_str());
-  const auto done = checkpoint::completed(dir);
-  std::printf("status     %s\n", done ? ("complete, X in " + *done).c_str() : "in progress");
+std::string file_text(const std::filesystem::path& path) {
+  std::ifstream in(path, std::ios::binary);
+  return in ? std::string(std::istreambuf_iterator<char>(in), {}) : std::string();
 }
 
-int run_info(const std::string& path) {
-  // Rank 0 reads the file alone; the others only learn the outcome.
-  int rank = 0;
-  MPI_Comm_rank(MPI_COMM_WORLD, &rank);
-  if (rank != 0) return 0;
-  if (std::filesystem::is_directory(path)) {
-    checkpoint_summary(path);
-    return 0;
+// A checkpoint directory: its job, how far it has come, whether it is finished. Read
+// without its lock, so a running job can be looked at.
+void checkpoint_summary(const std::string& dir) {
+  const auto job_path = std::filesystem::path(dir) / "job.json";
+  const std::string text = file_text(job_path);
+  if (text.empty()) throw error(error_kind::input, "no gridlu job in " + dir);
+  const auto j = workflows::job_from_json(text, job_path.string());
+  std::printf("checkpoint %s\n", dir.c_str());
+  std::printf("job        %s\n", j.id.c_str());
+  std::printf("solve      %s -> %s (%s, n = %lld, %lld right-hand side(s))\n", j.input.c_str(),
+              j.output.c_str(), j.type.c_str(), static_cast<long long>(j.n),
+              static_cast<long long>(j.nrhs));
+  const auto state = std::filesystem::path(dir) / "checkpoint.h5";
+  const auto marker = nlohmann::json::parse(file_text(std::filesystem::path(dir) / "complete.json"),
+                                            nullptr, false);
+  const bool finished = marker.is_object() && marker.value("job_id", "") == j.id;
+  if (std::filesystem::exists(state)) {
+    std::map<std::string, std::string> a;
+    for (const auto& [k, v] : io::describe(state.string()).attributes) a[k] = v;
+    if (a["gridlu_kind"] != "checkpoint" || a["job_id"] != j.id)
+      throw error(error_kind::input, state.string() + " is not this job's checkpoint");
+    char* end = nullptr;
+    const long long k = std::strtoll(a["columns_done"].c_str(), &end, 10);
+    if (end == a["columns_done"].c_str() || k < 0 || k > j.n)
+      throw error(error_kind::input, state.string() + " is damaged: no valid columns_done");
+    std::printf("progress   %lld of %lld columns eliminated, %.1f %% of the flops\n", k,
+                static_cast<long long>(j.n), workflows::percent_of_flops(j.n, k));
+    std::printf("time       %s s of factorization over all runs\n", a["elapsed_seconds"].c_str());
+    std::printf("restarts   %s\ncheckpoints %s written\n", a["restarts"].c_str(),
+                a["checkpoints"].c_str());
+  } else if (!finished) {
+    std::printf("progress   no checkpoint yet (a resume starts from column 0)\n");
   }
+  std::printf("status     %s\n", finished ? ("complete, X in " + j.output).c_str() : "in progress");
+}
+
+void file_summary(const std::string& path) {
   const auto d = io::describe(path);
   std::error_code ec;
   const auto bytes = std::filesystem::file_size(path, ec);
@@ -414,185 +521,60 @@ int run_info(const std::string& path) {
                 item.shape.type.c_str());
     attributes_of(item);
   }
-  return 0;
+}
+
+subcommand add_info(CLI::App& app, double) {
+  auto path = std::make_shared<std::string>();
+  auto* cmd = app.add_subcommand("info", "show what an HDF5 file or a checkpoint directory holds");
+  cmd->add_option("file", *path, "any HDF5 file, or a checkpoint directory")->required();
+  cmd->footer("Examples:\n  gridlu info charges.h5\n  gridlu info ckpt");
+  return {cmd, [=] {
+            // Rank 0 reads alone and the others wait for its outcome.
+            const process_grid grid(MPI_COMM_WORLD, {1, comm::world_size()});
+            comm::together(grid.all(), [&] {
+              if (grid.rank() != 0) return;
+              if (std::filesystem::is_directory(*path))
+                checkpoint_summary(*path);
+              else
+                file_summary(*path);
+            });
+            return 0;
+          }};
 }
 
 }  // namespace
 
 int main(int argc, char** argv) {
   gridlu::mpi_session mpi(argc, argv);
-  const double started = MPI_Wtime();
-  int rank = 0;
-  MPI_Comm_rank(MPI_COMM_WORLD, &rank);
+  const double started = comm::wtime();
+  const int rank = comm::world_rank();
+  // A file-size limit then fails the write (an output error) instead of killing the rank.
+  std::signal(SIGXFSZ, SIG_IGN);
 
   CLI::App app{"gridlu: dense LU with partial pivoting on a block-cyclic grid of MPI ranks."};
   app.footer(exit_codes_help);
   app.require_subcommand(1);
-
-  common_options common;
-  workflows::bench_options bench;
-  auto* bench_cmd = app.add_subcommand(
-      "bench",
-      "time the LU of a generated matrix in memory against the GEMM rate of the same ranks");
-  bench_cmd->add_option("--n", bench.n, "order of the matrix")->capture_default_str();
-  bench_cmd->add_option("--block", bench.block, "block size nb")->capture_default_str();
-  add_lookahead(bench_cmd, bench.lookahead);
-  bench_cmd->add_option("--type", bench.type, "float32, float64, complex64 or complex128")
-      ->capture_default_str();
-  bench_cmd->add_option("--seed", bench.seed, "seed of the generated matrix")
-      ->capture_default_str();
-  bench_cmd->add_option("--repeat", bench.repeat, "factorizations to time (median is reported)")
-      ->capture_default_str();
-  workflows::read_bench_options read_bench;
-  bench_cmd->add_option("--read", read_bench.path,
-                        "instead: time reading a dataset of this HDF5 file into the grid");
-  bench_cmd->add_option("--dataset", read_bench.dataset, "with --read: the dataset")
-      ->capture_default_str();
-  bench_cmd->add_flag("--column-major", read_bench.column_major,
-                      "with --read: the dataset holds the transpose");
-  add_common(bench_cmd, common);
-  bench_cmd->footer(
-      "Examples:\n  mpiexec -n 2 gridlu bench --n 8192 --grid 1x2 --repeat 3\n"
-      "  mpiexec -n 2 gridlu bench --read system.h5 --repeat 3");
-
-  workflows::demo_options demo;
-  auto* demo_cmd =
-      app.add_subcommand("demo", "solve a generated random system and report its backward error");
-  demo_cmd->add_option("--n", demo.n, "number of unknowns")->capture_default_str();
-  demo_cmd->add_option("--rhs", demo.nrhs, "number of right-hand sides")->capture_default_str();
-  demo_cmd->add_option("--block", demo.block, "block size nb")->capture_default_str();
-  add_lookahead(demo_cmd, demo.lookahead);
-  demo_cmd->add_option("--type", demo.type, "float32, float64, complex64 or complex128")
-      ->capture_default_str();
-  demo_cmd->add_option("--seed", demo.seed, "seed of the generated system")->capture_default_str();
-  add_common(demo_cmd, common);
-  demo_cmd->footer("Example:\n  mpiexec -n 2 gridlu demo --n 3000 --rhs 4\n\n" +
-                   std::string(exit_codes_help));
-
-  solve_cli solve;
-  auto& so = solve.options;
-  auto* solve_cmd = app.add_subcommand("solve", "solve A X = B read from an HDF5 file, write X");
-  solve_cmd->add_option("input", so.input, "HDF5 file with A (and B)")->required();
-  solve_cmd->add_option("--out", so.output, "HDF5 file to write X to")->required();
-  solve_cmd->add_option("--matrix-dataset", so.matrix_dataset, "name of A in INPUT")
-      ->capture_default_str();
-  solve_cmd->add_option("--rhs-dataset", so.rhs_dataset, "name of B")->capture_default_str();
-  solve_cmd->add_option("--rhs-file", so.rhs_file, "read B from this file instead of INPUT");
-  solve_cmd->add_option("--block", so.block, "block size nb")->capture_default_str();
-  add_lookahead(solve_cmd, so.lookahead);
-  solve_cmd->add_flag("--column-major", so.column_major,
-                      "A's dataset holds the transpose (element [i][j] is A(j, i)), as "
-                      "column-major writers store it");
-  solve_cmd->add_option("--save-factors", so.save_factors,
-                        "also write the LU factors to this file");
-  solve_cmd->add_option("--factors", so.factors,
-                        "solve with factors saved earlier instead of factoring");
-  solve_cmd->add_flag("--force", so.force,
-                      "replace OUTPUT (and the --save-factors file) if it exists");
-  solve_cmd->add_flag("--quiet", solve.quiet, "print nothing but errors");
-  solve_cmd->add_flag("--progress", solve.progress,
-                      "show factorization progress even when stderr is not a terminal");
-  solve_cmd->add_option("--checkpoint", so.checkpoint_dir,
-                        "keep checkpoints in this directory; SIGTERM, SIGUSR1 and SIGINT then stop "
-                        "with a checkpoint (exit 5)");
-  solve_cmd->add_option("--checkpoint-every", so.checkpoint_every, "minutes between checkpoints")
-      ->check(CLI::NonNegativeNumber);
-  solve_cmd
-      ->add_option("--stop-after", so.stop_after,
-                   "time budget in minutes: stop with a checkpoint early enough to end inside it")
-      ->check(CLI::NonNegativeNumber);
-  add_common(solve_cmd, common);
-  solve_cmd->footer(
-      "Examples:\n"
-      "  mpiexec -n 4 gridlu solve plate.h5 --out charges.h5\n"
-      "  mpiexec -n 4 gridlu solve plate.h5 --out x.h5 --save-factors plate-lu.h5\n"
-      "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out "
-      "x2.h5\n"
-      "  mpiexec -n 64 gridlu solve big.h5 --out x.h5 --checkpoint ckpt --checkpoint-every 30 "
-      "--stop-after 710\n\n" +
-      std::string(exit_codes_help));
-
-  workflows::generate_options gen;
-  auto* gen_cmd = app.add_subcommand("generate", "write a test system to an HDF5 file");
-  gen_cmd->require_subcommand(1);
-  auto* random_cmd = gen_cmd->add_subcommand(
-      "random", "random A and B, entries uniform in [-1, 1), the same on any number of ranks");
-  random_cmd->add_option("--n", gen.n, "number of unknowns")->required();
-  random_cmd->add_option("--out", gen.output, "HDF5 file to write")->required();
-  random_cmd->add_option("--rhs", gen.nrhs, "number of right-hand sides")->capture_default_str();
-  random_cmd->add_option("--type", gen.type, "float32, float64, complex64 or complex128")
-      ->capture_default_str();
-  random_cmd->add_option("--seed", gen.seed, "seed")->capture_default_str();
-  random_cmd->add_flag("--force", gen.force, "replace the file if it exists");
-  add_common(random_cmd, common);
-  random_cmd->footer(
-      "Example:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5");
-
-  resume_cli resume;
-  auto* resume_cmd =
-      app.add_subcommand("resume", "finish a checkpointed solve, on any number of ranks");
-  resume_cmd->add_option("dir", resume.options.dir, "the solve's checkpoint directory")->required();
-  resume_cmd->add_option(
-      "--block", resume.options.block,
-      "block size nb (default: the one the checkpoint was made with; any works)");
-  add_lookahead(resume_cmd, resume.options.lookahead);
-  resume_cmd->add_option("--out", resume.options.output,
-                         "write X here instead of the recorded OUTPUT");
-  resume_cmd->add_flag("--force", resume.options.force, "replace OUTPUT if it exists");
-  resume_cmd
-      ->add_option("--checkpoint-every", resume.options.checkpoint_every,
-                   "minutes between checkpoints")
-      ->check(CLI::NonNegativeNumber);
-  resume_cmd->add_option("--stop-after", resume.options.stop_after, "time budget in minutes")
-      ->check(CLI::NonNegativeNumber);
-  resume_cmd->add_flag("--quiet", resume.quiet, "print nothing but errors");
-  resume_cmd->add_flag("--progress", resume.progress,
-                       "show progress even when stderr is not a terminal");
-  add_common(resume_cmd, common);
-  resume_cmd->footer("Example:\n  mpiexec -n 128 gridlu resume ckpt --stop-after 710\n\n" +
-                     std::string(exit_codes_help));
-
-  std::string info_path;
-  auto* info_cmd = app.add_subcommand("info", "show what an HDF5 file holds");
-  info_cmd->add_option("file", info_path, "any HDF5 file, or a checkpoint directory")->required();
-  info_cmd->footer("Examples:\n  gridlu info charges.h5\n  gridlu info ckpt");
-
+  const subcommand commands[] = {add_bench(app, started),  add_demo(app, started),
+                                 add_solve(app, started),  add_generate(app, started),
+                                 add_resume(app, started), add_info(app, started)};
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
     // Every rank parses the same arguments; only rank 0 speaks.
     if (rank == 0) app.exit(e);
-    return e.get_exit_code() == 0 ? 0 : static_cast<int>(exit_code::usage);
+    return e.get_exit_code() == 0 ? 0 : exit_code(error_kind::usage);
   }
 
   try {
-    if (*bench_cmd && !read_bench.path.empty()) {
-      read_bench.block = bench.block;
-      read_bench.repeat = bench.repeat;
-      return run_read_bench(read_bench, common);
-    }
-    if (*bench_cmd) return run_bench(bench, common);
-    if (*demo_cmd) return run_demo(demo, common);
-    if (*solve_cmd) {
-      so.checkpoint_every *= 60;
-      so.stop_after *= 60;
-      so.started = started;
-      return run_solve(solve, common);
-    }
-    if (*gen_cmd) return run_generate(gen, common);
-    if (*resume_cmd) {
-      resume.options.checkpoint_every *= 60;
-      resume.options.stop_after *= 60;
-      resume.options.started = started;
-      return run_resume(resume, common);
-    }
-    return run_info(info_path);
+    for (const auto& c : commands)
+      if (*c.app) return c.run();
+    return exit_code(error_kind::usage);
   } catch (const gridlu::error& e) {
     // Errors reaching here were agreed by all ranks (or raised by all alike).
     if (rank == 0) std::fprintf(stderr, "gridlu: error: %s\n", e.what());
-    return static_cast<int>(e.code());
+    return exit_code(e.kind());
   } catch (const std::exception& e) {
     std::fprintf(stderr, "gridlu: error: internal failure on rank %d: %s\n", rank, e.what());
-    MPI_Abort(MPI_COMM_WORLD, static_cast<int>(exit_code::internal));
+    comm::abort_job(exit_code(error_kind::internal));
   }
 }

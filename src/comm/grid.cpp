@@ -1,11 +1,12 @@
 // The one place that calls MPI.
-#include "gridlu/grid.hpp"
+#include "comm/collectives.hpp"
 
 #include <algorithm>
 #include <charconv>
 #include <climits>
 #include <complex>
 #include <cstdint>
+#include <cstdlib>
 #include <cstring>
 #include <new>
 
@@ -17,7 +18,7 @@ void check(int rc, const char* what) {
     char text[MPI_MAX_ERROR_STRING];
     int len = 0;
     MPI_Error_string(rc, text, &len);
-    throw error(exit_code::internal, std::string(what) + ": " + std::string(text, len));
+    throw error(error_kind::internal, std::string(what) + ": " + std::string(text, len));
   }
 }
 
@@ -42,7 +43,7 @@ MPI_Datatype mpi_type() {
 }
 
 int to_int(index_t count) {
-  if (count < 0 || count > INT_MAX) throw error(exit_code::internal, "message too large for MPI");
+  if (count < 0 || count > INT_MAX) throw error(error_kind::internal, "message too large for MPI");
   return static_cast<int>(count);
 }
 
@@ -87,7 +88,7 @@ grid_shape parse_grid_shape(std::string_view text) {
   };
   if (x == std::string_view::npos || !number(text.substr(0, x), s.p) ||
       !number(text.substr(x + 1), s.q))
-    throw error(exit_code::usage,
+    throw error(error_kind::usage,
                 "grid '" + std::string(text) + "' is not of the form PxQ with P, Q >= 1");
   return s;
 }
@@ -104,10 +105,10 @@ process_grid::process_grid(MPI_Comm parent, grid_shape shape) : shape_(shape) {
   MPI_Comm_size(parent, &size);
   MPI_Comm_rank(parent, &rank);
   if (shape.p < 1 || shape.q < 1 || shape.p * shape.q != size)
-    throw error(exit_code::usage, "grid " + std::to_string(shape.p) + "x" +
-                                      std::to_string(shape.q) + " needs " +
-                                      std::to_string(shape.p * shape.q) + " ranks, but " +
-                                      std::to_string(size) + " are running");
+    throw error(error_kind::usage, "grid " + std::to_string(shape.p) + "x" +
+                                       std::to_string(shape.q) + " needs " +
+                                       std::to_string(shape.p * shape.q) + " ranks, but " +
+                                       std::to_string(size) + " are running");
   MPI_Comm c = MPI_COMM_NULL;
   check(MPI_Comm_dup(parent, &c), "MPI_Comm_dup");
   all_ = communicator(c);
@@ -122,6 +123,23 @@ process_grid::process_grid(MPI_Comm parent, grid_shape shape) : shape_(shape) {
 namespace comm {
 
 double wtime() { return MPI_Wtime(); }
+
+int world_rank() {
+  int rank = 0;
+  MPI_Comm_rank(MPI_COMM_WORLD, &rank);
+  return rank;
+}
+
+int world_size() {
+  int size = 0;
+  MPI_Comm_size(MPI_COMM_WORLD, &size);
+  return size;
+}
+
+void abort_job(int code) {
+  MPI_Abort(MPI_COMM_WORLD, code);
+  std::abort();  // MPI_Abort does not return; this tells the compiler so
+}
 
 std::string library_version() {
   char text[MPI_MAX_LIBRARY_VERSION_STRING];
@@ -139,6 +157,13 @@ void broadcast(const communicator& c, T* data, index_t count, int root) {
     check(
         MPI_Bcast(data + done, to_int(std::min(chunk, count - done)), mpi_type<T>(), root, c.get()),
         "MPI_Bcast");
+}
+
+void broadcast(const communicator& c, std::string& text, int root) {
+  std::int64_t size = static_cast<std::int64_t>(text.size());
+  broadcast(c, &size, 1, root);
+  text.resize(static_cast<std::size_t>(size));
+  check(MPI_Bcast(text.data(), to_int(size), MPI_CHAR, root, c.get()), "MPI_Bcast");
 }
 
 template <class T>
@@ -315,13 +340,13 @@ void all_gather(const communicator& c, const T* send, index_t count, T* recv,
 }
 
 void agree(const communicator& c, std::exception_ptr mine) {
-  exit_code code = exit_code::internal;
+  error_kind code = error_kind::internal;
   std::string message;
   if (mine) {
     try {
       std::rethrow_exception(mine);
     } catch (const error& e) {
-      code = e.code();
+      code = e.kind();
       message = e.what();
     } catch (const std::bad_alloc&) {
       message = "out of memory";
@@ -338,7 +363,7 @@ void agree(const communicator& c, std::exception_ptr mine) {
   check(MPI_Bcast(header, 2, MPI_INT, first, c.get()), "MPI_Bcast");
   message.resize(static_cast<std::size_t>(header[1]));
   check(MPI_Bcast(message.data(), header[1], MPI_CHAR, first, c.get()), "MPI_Bcast");
-  throw error(static_cast<exit_code>(header[0]), message);
+  throw error(static_cast<error_kind>(header[0]), message);
 }
 
 #define GRIDLU_COMM_TYPES(X) \

@@ -1,5 +1,6 @@
 #include "factor/interchange.hpp"
 
+#include "comm/collectives.hpp"
 #include "instantiate.hpp"
 
 #include <algorithm>

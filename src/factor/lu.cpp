@@ -8,9 +8,10 @@
 #include <limits>
 #include <optional>
 
+#include "comm/collectives.hpp"
 #include "factor/interchange.hpp"
-#include "gridlu/kernels.hpp"
 #include "instantiate.hpp"
+#include "kernels/blas.hpp"
 
 namespace gridlu {
 namespace {
@@ -465,11 +466,12 @@ private:
 
 template <scalar T>
 lu_result factor(dist_matrix<T>& a, lu_result state, const lu_options& options) {
-  if (a.rows() != a.cols()) throw error(exit_code::usage, "LU needs a square matrix");
-  if (options.lookahead < 0) throw error(exit_code::usage, "look-ahead depth must be 0 or more");
-  if (options.update_columns < 1) throw error(exit_code::usage, "update_columns must be 1 or more");
+  if (a.rows() != a.cols()) throw error(error_kind::usage, "LU needs a square matrix");
+  if (options.lookahead < 0) throw error(error_kind::usage, "look-ahead depth must be 0 or more");
+  if (options.update_columns < 1)
+    throw error(error_kind::usage, "update_columns must be 1 or more");
   if (state.columns_done < 0 || state.columns_done > a.rows() || !state.settled)
-    throw error(exit_code::internal, "factor: not a state to continue from");
+    throw error(error_kind::internal, "factor: not a state to continue from");
   lu_result result = std::move(state);
   result.phases = {};
   result.pivots.resize(static_cast<std::size_t>(a.rows()));

@@ -2,7 +2,7 @@
 #include <algorithm>
 
 #include "factor/interchange.hpp"
-#include "gridlu/kernels.hpp"
+#include "kernels/blas.hpp"
 #include "gridlu/lu.hpp"
 #include "instantiate.hpp"
 
@@ -61,7 +61,7 @@ template <scalar T>
 void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b) {
   if (&b.grid() != &lu.grid() || b.rows() != lu.rows() || b.block() != lu.block() ||
       static_cast<index_t>(pivots.size()) != lu.rows())
-    throw error(exit_code::usage,
+    throw error(error_kind::usage,
                 "solve: right-hand sides must match the factors' order, grid and block size");
   const detail::column_range all[] = {{0, b.local_cols()}};
   detail::interchange_buffers<T> buffers;

@@ -9,6 +9,7 @@
 #include <filesystem>
 #include <numeric>
 
+#include "comm/collectives.hpp"
 #include "gridlu/generate.hpp"
 #include "gridlu/io.hpp"
 #include "instantiate.hpp"
@@ -83,7 +84,7 @@ dataset_shape describe_dataset(hid_t dset) {
 
 handle open_dataset(hid_t file, const std::string& name, const std::string& path) {
   if (H5Lexists(file, name.c_str(), H5P_DEFAULT) <= 0)
-    throw error(exit_code::input, "no dataset " + quoted(name) + " in " + path);
+    throw error(error_kind::input, "no dataset " + quoted(name) + " in " + path);
   const hid_t id = H5Dopen2(file, name.c_str(), H5P_DEFAULT);
   return {check(id, quoted(name) + " in " + path + " is not a dataset"), H5Dclose};
 }
@@ -167,13 +168,13 @@ handle select_rows(hid_t dset, index_t first, index_t count) {
   const hsize_t start[2] = {static_cast<hsize_t>(first), 0};
   const hsize_t n[2] = {static_cast<hsize_t>(count), dims[1]};
   check(H5Sselect_hyperslab(space.get(), H5S_SELECT_SET, start, nullptr, n, nullptr),
-        "H5Sselect_hyperslab", exit_code::internal);
+        "H5Sselect_hyperslab", error_kind::internal);
   return space;
 }
 
 handle memory_space(index_t elements) {
   const hsize_t n = static_cast<hsize_t>(elements);
-  return {check(H5Screate_simple(1, &n, nullptr), "H5Screate_simple", exit_code::internal),
+  return {check(H5Screate_simple(1, &n, nullptr), "H5Screate_simple", error_kind::internal),
           H5Sclose};
 }
 
@@ -232,18 +233,19 @@ file::file(const process_grid& grid, const std::string& path, mode m)
     : grid_(&grid), path_(path), h_(std::make_unique<handles>()) {
   silence_hdf5();
   comm::together(grid.all(), [&] {
-    handle fapl(check(H5Pcreate(H5P_FILE_ACCESS), "H5Pcreate", exit_code::internal), H5Pclose);
+    handle fapl(check(H5Pcreate(H5P_FILE_ACCESS), "H5Pcreate", error_kind::internal), H5Pclose);
     check(H5Pset_fapl_mpio(fapl.get(), grid.all().get(), MPI_INFO_NULL), "H5Pset_fapl_mpio",
-          exit_code::internal);
+          error_kind::internal);
     if (m == mode::create) {
       const hid_t id = H5Fcreate(path.c_str(), H5F_ACC_TRUNC, H5P_DEFAULT, fapl.get());
-      h_->file = handle(check(id, "cannot create " + path, exit_code::usage), H5Fclose);
+      h_->file = handle(check(id, "cannot create " + path, error_kind::output), H5Fclose);
       return;
     }
     struct stat st {};
     if (stat(path.c_str(), &st) != 0)
-      throw error(exit_code::input, "cannot open " + path + ": " + std::strerror(errno));
-    if (H5Fis_hdf5(path.c_str()) <= 0) throw error(exit_code::input, path + " is not an HDF5 file");
+      throw error(error_kind::input, "cannot open " + path + ": " + std::strerror(errno));
+    if (H5Fis_hdf5(path.c_str()) <= 0)
+      throw error(error_kind::input, path + " is not an HDF5 file");
     const hid_t id = H5Fopen(path.c_str(), H5F_ACC_RDONLY, fapl.get());
     h_->file =
         handle(check(id, path + " cannot be opened as HDF5 (truncated or damaged?)"), H5Fclose);
@@ -256,7 +258,8 @@ file& file::operator=(file&&) noexcept = default;
 
 void file::close() {
   comm::together(grid_->all(), [&] {
-    if (h_->file.release() < 0) throw error(exit_code::input, "cannot finish writing " + path_);
+    if (h_->file.release() < 0)
+      throw error(error_kind::output, "cannot finish writing " + path_ + " (disk full?)");
   });
 }
 
@@ -278,7 +281,7 @@ void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) con
                         ? s.dims[0] == file_rows && s.dims[1] == plan.file_cols
                         : s.dims.size() == 1 && s.dims[0] == file_rows && plan.file_cols == 1;
   if (!fits || !s.usable || (s.is_complex && !scalar_traits<T>::is_complex))
-    throw error(exit_code::internal, "read: " + name + " does not fit the matrix");
+    throw error(error_kind::internal, "read: " + name + " does not fit the matrix");
   const std::string what = quoted(name) + " from " + path_;
   const int me = grid_->rank();
   const index_t mine_across = plan.across.local_extent(plan.my_across());
@@ -334,7 +337,7 @@ std::uint64_t file::checksum(const std::string& name, bool transposed) const {
   const auto dset = open_dataset(h_->file.get(), name, path_);
   const auto s = describe_dataset(dset.get());
   if (s.dims.empty() || s.dims.size() > 2 || !s.usable)
-    throw error(exit_code::input, quoted(name) + " in " + path_ + " is not a matrix of numbers");
+    throw error(error_kind::input, quoted(name) + " in " + path_ + " is not a matrix of numbers");
   const index_t file_rows = s.dims[0], file_cols = s.dims.size() == 2 ? s.dims[1] : 1;
   const cyclic_map slabs(file_rows, 64, 1);
   std::uint64_t sum = 0;
@@ -357,7 +360,7 @@ std::uint64_t file::checksum(const std::string& name, bool transposed) const {
 
 void file::flush() {
   comm::together(grid_->all(), [&] {
-    check(H5Fflush(h_->file.get(), H5F_SCOPE_GLOBAL), "cannot flush " + path_);
+    check(H5Fflush(h_->file.get(), H5F_SCOPE_GLOBAL), "cannot flush " + path_, error_kind::output);
   });
 }
 
@@ -369,15 +372,17 @@ void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dime
   comm::together(grid_->all(), [&] {
     const hsize_t dims[2] = {static_cast<hsize_t>(rows), static_cast<hsize_t>(cols)};
     const handle space(check(H5Screate_simple(one_dimensional ? 1 : 2, dims, nullptr),
-                             "H5Screate_simple", exit_code::internal),
+                             "H5Screate_simple", error_kind::internal),
                        H5Sclose);
-    const handle dcpl(check(H5Pcreate(H5P_DATASET_CREATE), "H5Pcreate", exit_code::internal),
+    const handle dcpl(check(H5Pcreate(H5P_DATASET_CREATE), "H5Pcreate", error_kind::internal),
                       H5Pclose);
     H5Pset_fill_time(dcpl.get(), H5D_FILL_TIME_NEVER);  // every element is written
     const auto type = h5::memory_type<T>();
     const hid_t id = H5Dcreate2(h_->file.get(), name.c_str(), type.get(), space.get(), H5P_DEFAULT,
                                 dcpl.get(), H5P_DEFAULT);
-    dset = handle(check(id, "cannot create dataset " + quoted(name) + " in " + path_), H5Dclose);
+    dset = handle(
+        check(id, "cannot create dataset " + quoted(name) + " in " + path_, error_kind::output),
+        H5Dclose);
   });
   const int me = grid_->rank();
   const index_t mine_across = plan.across.local_extent(plan.my_across());
@@ -422,7 +427,7 @@ void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dime
       const auto type = h5::memory_type<T>();
       check(H5Dwrite(dset.get(), type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT,
                      slab.data()),
-            "cannot write " + quoted(name) + " to " + path_ + " (disk full?)");
+            "cannot write " + quoted(name) + " to " + path_ + " (disk full?)", error_kind::output);
     });
   }
 }
@@ -431,13 +436,14 @@ void file::write_indices(const std::string& name, const std::vector<index_t>& va
   comm::together(grid_->all(), [&] {
     const hsize_t n = values.size();
     const handle space(check(H5Screate_simple(1, &n, nullptr), "H5Screate_simple"), H5Sclose);
-    const handle dset(check(H5Dcreate2(h_->file.get(), name.c_str(), H5T_NATIVE_INT64, space.get(),
-                                       H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
-                            "cannot create dataset " + quoted(name) + " in " + path_),
-                      H5Dclose);
+    const handle dset(
+        check(H5Dcreate2(h_->file.get(), name.c_str(), H5T_NATIVE_INT64, space.get(), H5P_DEFAULT,
+                         H5P_DEFAULT, H5P_DEFAULT),
+              "cannot create dataset " + quoted(name) + " in " + path_, error_kind::output),
+        H5Dclose);
     if (grid_->rank() == 0)
       check(H5Dwrite(dset.get(), H5T_NATIVE_INT64, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()),
-            "cannot write " + quoted(name) + " to " + path_);
+            "cannot write " + quoted(name) + " to " + path_, error_kind::output);
   });
 }
 
@@ -447,7 +453,7 @@ std::vector<index_t> file::read_indices(const std::string& name) const {
     const auto dset = open_dataset(h_->file.get(), name, path_);
     const auto s = describe_dataset(dset.get());
     if (s.dims.size() != 1 || s.type.rfind("int", 0) != 0)
-      throw error(exit_code::input,
+      throw error(error_kind::input,
                   quoted(name) + " in " + path_ + " is not a 1-D integer dataset");
     values.resize(static_cast<std::size_t>(s.dims[0]));
     check(H5Dread(dset.get(), H5T_NATIVE_INT64, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()),
@@ -488,9 +494,10 @@ void file::set_attribute(const std::string& object, const std::string& key,
     }
     const handle attr(
         check(H5Acreate2(obj.get(), key.c_str(), type.get(), space.get(), H5P_DEFAULT, H5P_DEFAULT),
-              "cannot write attribute " + key + " in " + path_),
+              "cannot write attribute " + key + " in " + path_, error_kind::output),
         H5Aclose);
-    check(H5Awrite(attr.get(), type.get(), data), "cannot write attribute " + key);
+    check(H5Awrite(attr.get(), type.get(), data), "cannot write attribute " + key,
+          error_kind::output);
   });
 }
 
@@ -583,10 +590,24 @@ std::optional<attribute> file::get_attribute(const std::string& object,
 }
 
 file_identity identify(const std::string& path) {
+  file_identity id;
+  std::error_code ec;
+  id.path = std::filesystem::weakly_canonical(std::filesystem::absolute(path), ec).string();
+  if (ec) id.path = std::filesystem::absolute(path).lexically_normal().string();
   struct stat st {};
-  stat(path.c_str(), &st);
-  return {std::filesystem::absolute(path).string(), static_cast<std::int64_t>(st.st_size),
-          static_cast<double>(st.st_mtim.tv_sec) + 1e-9 * static_cast<double>(st.st_mtim.tv_nsec)};
+  if (stat(path.c_str(), &st) != 0) return id;
+  id.exists = true;
+  id.device = st.st_dev;
+  id.inode = st.st_ino;
+  id.size = static_cast<std::int64_t>(st.st_size);
+  id.mtime =
+      static_cast<double>(st.st_mtim.tv_sec) + 1e-9 * static_cast<double>(st.st_mtim.tv_nsec);
+  return id;
+}
+
+bool same_file(const file_identity& a, const file_identity& b) {
+  if (a.exists && b.exists) return a.device == b.device && a.inode == b.inode;
+  return a.path == b.path;
 }
 
 std::string checksum_text(std::uint64_t sum) {
@@ -614,8 +635,8 @@ description describe(const std::string& path) {
   silence_hdf5();
   struct stat st {};
   if (stat(path.c_str(), &st) != 0)
-    throw error(exit_code::input, "cannot open " + path + ": " + std::strerror(errno));
-  if (H5Fis_hdf5(path.c_str()) <= 0) throw error(exit_code::input, path + " is not an HDF5 file");
+    throw error(error_kind::input, "cannot open " + path + ": " + std::strerror(errno));
+  if (H5Fis_hdf5(path.c_str()) <= 0) throw error(error_kind::input, path + " is not an HDF5 file");
   const handle f(check(H5Fopen(path.c_str(), H5F_ACC_RDONLY, H5P_DEFAULT),
                        path + " cannot be opened as HDF5 (truncated or damaged?)"),
                  H5Fclose);

@@ -14,7 +14,7 @@ namespace gridlu::io::h5 {
 
 // HDF5 returns negative ids and statuses on failure.
 template <class R>
-R check(R rc, const std::string& what, exit_code code = exit_code::input) {
+R check(R rc, const std::string& what, error_kind code = error_kind::input) {
   if (rc < 0) throw error(code, what);
   return rc;
 }
@@ -46,7 +46,7 @@ private:
 };
 
 inline handle owned_type(hid_t id, const std::string& what) {
-  return {check(id, what, exit_code::internal), H5Tclose};
+  return {check(id, what, error_kind::internal), H5Tclose};
 }
 
 // The in-memory HDF5 type of T: native floats, and complex as the compound {r, i} that
@@ -59,8 +59,8 @@ handle memory_type() {
     return owned_type(H5Tcopy(real), "H5Tcopy");
   } else {
     handle t = owned_type(H5Tcreate(H5T_COMPOUND, sizeof(T)), "H5Tcreate");
-    check(H5Tinsert(t.get(), "r", 0, real), "H5Tinsert", exit_code::internal);
-    check(H5Tinsert(t.get(), "i", sizeof(R), real), "H5Tinsert", exit_code::internal);
+    check(H5Tinsert(t.get(), "r", 0, real), "H5Tinsert", error_kind::internal);
+    check(H5Tinsert(t.get(), "i", sizeof(R), real), "H5Tinsert", error_kind::internal);
     return t;
   }
 }

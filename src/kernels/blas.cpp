@@ -1,5 +1,5 @@
 // The one place that calls CBLAS and LAPACKE (OpenBLAS).
-#include "gridlu/kernels.hpp"
+#include "kernels/blas.hpp"
 
 #include <cblas.h>
 #include <lapacke.h>

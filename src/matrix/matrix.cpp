@@ -8,6 +8,7 @@
 #include <limits>
 #include <new>
 
+#include "comm/collectives.hpp"
 #include "gridlu/generate.hpp"
 #include "instantiate.hpp"
 
@@ -49,7 +50,7 @@ dist_matrix<T>::dist_matrix(const process_grid& grid, index_t m, index_t n, inde
       ld_(std::max<index_t>(1, local_rows_)),
       storage_(static_cast<std::size_t>(ld_ * local_cols_)) {
   if (m < 0 || n < 0 || nb < 1)
-    throw error(exit_code::usage, "matrix sizes must be >= 0 and the block size >= 1");
+    throw error(error_kind::usage, "matrix sizes must be >= 0 and the block size >= 1");
 }
 
 namespace {
@@ -102,7 +103,7 @@ void dist_matrix<T>::scatter(const std::vector<T>& whole, int root) {
   std::vector<T> packed;
   comm::together(all, [&] {
     if (all.rank() == root && static_cast<index_t>(whole.size()) != rows() * cols())
-      throw error(exit_code::internal, "scatter: array size does not match the matrix");
+      throw error(error_kind::internal, "scatter: array size does not match the matrix");
   });
   if (all.rank() == root) {
     packed.resize(whole.size());

@@ -4,8 +4,10 @@
 #include "gridlu/accuracy.hpp"
 #include "gridlu/generate.hpp"
 #include "gridlu/io.hpp"
-#include "gridlu/kernels.hpp"
 #include "gridlu/lu.hpp"
+#include "gridlu/version.hpp"
+#include "io/staged.hpp"
+#include "kernels/blas.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
@@ -13,7 +15,7 @@ namespace gridlu::workflows {
 namespace {
 
 void check_sizes(index_t n, index_t block) {
-  if (n < 1) throw error(exit_code::usage, "the order N must be at least 1");
+  if (n < 1) throw error(error_kind::usage, "the order N must be at least 1");
   require_block(block);
 }
 
@@ -94,7 +96,7 @@ template <class R, class F>
 R by_type(const std::string& type, F&& f) {
   R result;
   if (!dispatch_scalar(type, [&](auto zero) { result = f(zero); }))
-    throw error(exit_code::usage,
+    throw error(error_kind::usage,
                 "unknown element type '" + type + "' (float32, float64, complex64 or complex128)");
   return result;
 }
@@ -103,7 +105,7 @@ R by_type(const std::string& type, F&& f) {
 
 bench_result bench(const process_grid& grid, const bench_options& o) {
   check_sizes(o.n, o.block);
-  if (o.repeat < 1) throw error(exit_code::usage, "--repeat must be at least 1");
+  if (o.repeat < 1) throw error(error_kind::usage, "--repeat must be at least 1");
   return by_type<bench_result>(o.type, [&]<class T>(T) { return bench_typed<T>(grid, o); });
 }
 
@@ -112,7 +114,8 @@ read_bench_result bench_read(const process_grid& grid, const read_bench_options&
   const io::file f(grid, o.path, io::file::mode::read);
   const auto shape = f.shape(o.dataset);
   if (shape.dims.size() != 2 || !shape.usable)
-    throw error(exit_code::input, o.dataset + " in " + o.path + " is not a 2-D dataset of numbers");
+    throw error(error_kind::input,
+                o.dataset + " in " + o.path + " is not a 2-D dataset of numbers");
   const index_t rows = o.column_major ? shape.dims[1] : shape.dims[0];
   const index_t cols = o.column_major ? shape.dims[0] : shape.dims[1];
   read_bench_result r;
@@ -129,8 +132,43 @@ read_bench_result bench_read(const process_grid& grid, const read_bench_options&
 demo_result demo(const process_grid& grid, const demo_options& o) {
   check_sizes(o.n, o.block);
   if (o.nrhs < 1)
-    throw error(exit_code::usage, "the number of right-hand sides must be at least 1");
+    throw error(error_kind::usage, "the number of right-hand sides must be at least 1");
   return by_type<demo_result>(o.type, [&]<class T>(T) { return demo_typed<T>(grid, o); });
+}
+
+void generate_file(const process_grid& grid, const generate_options& o) {
+  if (o.n < 1) throw error(error_kind::usage, "--n must be at least 1");
+  if (o.nrhs < 1) throw error(error_kind::usage, "--rhs must be at least 1");
+  const auto policy = o.force ? io::existing::replace : io::existing::refuse;
+  comm::together(grid.all(), [&] {
+    if (grid.rank() == 0) io::check_output_target(o.output, policy);
+  });
+  const bool known = dispatch_scalar(o.type, [&]<class T>(T) {
+    dist_matrix<T> a(grid, o.n, o.n, default_block), b(grid, o.n, o.nrhs, default_block);
+    a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
+    b.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); });
+    io::staged_output out(grid, o.output, policy);
+    {
+      io::file f(grid, out.path(), io::file::mode::create);
+      f.write("A", a);
+      f.write("B", b);
+      const std::pair<const char*, io::attribute> attrs[] = {
+          {"gridlu_kind", std::string("system")},
+          {"gridlu_format", std::int64_t{1}},
+          {"gridlu_version", std::string(version)},
+          {"generator", std::string("random")},
+          {"seed", static_cast<std::int64_t>(o.seed)},
+          {"n", std::int64_t{o.n}},
+          {"nrhs", std::int64_t{o.nrhs}},
+          {"type", o.type}};
+      for (const auto& [key, value] : attrs) f.set_attribute("/", key, value);
+      f.close();
+    }
+    out.commit();
+  });
+  if (!known)
+    throw error(error_kind::usage, "unknown element type '" + o.type +
+                                       "' (float32, float64, complex64 or complex128)");
 }
 
 }  // namespace gridlu::workflows

@@ -1,23 +1,188 @@
+// The solve job: checks before any work, reading, factoring with checkpoints, solving,
+// checking and writing — each a small stage of run_job.
 #include <algorithm>
-#include <csignal>
-#include <cstdio>
+#include <cmath>
 #include <filesystem>
 #include <optional>
+#include <utility>
 
 #include "gridlu/accuracy.hpp"
 #include "gridlu/checkpoint.hpp"
-#include "gridlu/generate.hpp"
 #include "gridlu/io.hpp"
 #include "gridlu/lu.hpp"
 #include "gridlu/version.hpp"
-#include "workflows/staged_output.hpp"
+#include "io/staged.hpp"
+#include "workflows/budget.hpp"
+#include "workflows/stop.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
 namespace gridlu::workflows {
 namespace {
 
-constexpr std::int64_t format_version = 1;
+constexpr std::int64_t format_version = 2;
+
+std::string absolute(const std::string& p) {
+  return p.empty() ? p : std::filesystem::absolute(p).lexically_normal().string();
+}
+
+double element_bytes(const std::string& type) {
+  double bytes = 0;
+  dispatch_scalar(type, [&]<class T>(T) { bytes = sizeof(T); });
+  return bytes;
+}
+
+std::string text_attribute(const io::file& f, const std::string& key) {
+  return f.get_attribute_as<std::string>("/", key).value_or("");
+}
+std::int64_t integer_attribute(const io::file& f, const std::string& key) {
+  return f.get_attribute_as<std::int64_t>("/", key).value_or(-1);
+}
+
+// ---------------------------------------------------------------------------------------
+// Before any work: options, and outputs against inputs.
+
+void check_options(const solve_options& o) {
+  require_block(o.block);
+  if (!o.factors.empty() && !o.save_factors.empty())
+    throw error(error_kind::usage, "--factors and --save-factors do not go together");
+  if (!o.factors.empty() && !o.checkpoint_dir.empty())
+    throw error(error_kind::usage, "--factors needs no factorization and so no --checkpoint");
+  if ((o.checkpoint_every > 0 || o.stop_after > 0) && o.checkpoint_dir.empty())
+    throw error(error_kind::usage, "--checkpoint-every and --stop-after need --checkpoint DIR");
+}
+
+job job_of(const solve_options& o) {
+  job j;
+  j.id = new_job_id();
+  j.input = absolute(o.input);
+  j.matrix_dataset = o.matrix_dataset;
+  j.rhs_file = absolute(o.rhs_file);
+  j.rhs_dataset = o.rhs_dataset;
+  j.factors = absolute(o.factors);
+  j.column_major = o.column_major;
+  j.block = o.block;
+  j.lookahead = o.lookahead;
+  j.force = o.force;
+  j.checkpoint_every = o.checkpoint_every;
+  j.output = absolute(o.output);
+  j.save_factors = absolute(o.save_factors);
+  j.checkpoint_dir = absolute(o.checkpoint_dir);
+  return j;
+}
+
+struct named_path {
+  std::string what, path;
+};
+
+// The files a run of the job writes, each with the words that name it to the user.
+std::vector<named_path> outputs_of(const job& j, const std::string& report) {
+  std::vector<named_path> out{{"--out", j.output}};
+  if (!j.save_factors.empty()) out.push_back({"--save-factors", j.save_factors});
+  if (!report.empty()) out.push_back({"--report", report});
+  if (!j.checkpoint_dir.empty())
+    for (const char* name : {"job.json", "checkpoint.h5", "complete.json", "lock"})
+      out.push_back({"the checkpoint directory's " + std::string(name),
+                     (std::filesystem::path(j.checkpoint_dir) / name).string()});
+  return out;
+}
+
+std::vector<named_path> inputs_of(const job& j) {
+  std::vector<named_path> in{{"the input " + j.input, j.input}};
+  if (!j.rhs_file.empty()) in.push_back({"--rhs-file " + j.rhs_file, j.rhs_file});
+  if (!j.factors.empty()) in.push_back({"--factors " + j.factors, j.factors});
+  return in;
+}
+
+// No output may be an input or another output, whatever --force says; each output's
+// directory must accept it. Checked by rank 0 before anything is read or written.
+void check_paths(const process_grid& grid, const job& j, const std::string& report) {
+  comm::together(grid.all(), [&] {
+    if (grid.rank() != 0) return;
+    const auto outputs = outputs_of(j, report);
+    const auto inputs = inputs_of(j);
+    std::vector<io::file_identity> ids;
+    for (const auto& o : outputs) ids.push_back(io::identify(o.path));
+    for (std::size_t k = 0; k < outputs.size(); ++k) {
+      for (const auto& in : inputs)
+        if (io::same_file(ids[k], io::identify(in.path)))
+          throw error(error_kind::usage, outputs[k].what + " (" + outputs[k].path + ") is " +
+                                             in.what + "; gridlu never writes over an input");
+      for (std::size_t m = 0; m < k; ++m)
+        if (io::same_file(ids[k], ids[m]))
+          throw error(error_kind::usage, outputs[m].what + " and " + outputs[k].what +
+                                             " name the same file " + outputs[k].path);
+    }
+    const auto policy = j.force ? io::existing::replace : io::existing::refuse;
+    io::check_output_target(j.output, policy);
+    if (!j.save_factors.empty()) io::check_output_target(j.save_factors, policy);
+    if (!report.empty()) io::check_output_target(report, policy);
+  });
+}
+
+// ---------------------------------------------------------------------------------------
+// Inputs.
+
+// Shape checks of a dataset that must hold numbers gridlu can solve with.
+void require_numbers(const io::dataset_shape& s, const std::string& name, const std::string& path) {
+  if (!s.usable)
+    throw error(error_kind::input, name + " in " + path + " holds " + s.type +
+                                       "; gridlu reads float32, float64 and complex (compound of "
+                                       "floats named r and i)");
+}
+
+// The input files of a solve, opened and checked.
+struct inputs {
+  io::file input;
+  std::optional<io::file> other;  // B's own file, with --rhs-file
+  io::dataset_shape a_shape, b_shape;
+  const io::file& rhs() const { return other ? *other : input; }
+  bool rhs_1d() const { return b_shape.dims.size() == 1; }
+};
+
+void check_matrix_shape(const io::dataset_shape& a, const std::string& a_name) {
+  if (a.dims.size() != 2)
+    throw error(error_kind::input, a_name + " has " + std::to_string(a.dims.size()) +
+                                       " dimensions; the matrix must be 2-D");
+  if (a.dims[0] != a.dims[1])
+    throw error(error_kind::input, a_name + " is " + std::to_string(a.dims[0]) + " x " +
+                                       std::to_string(a.dims[1]) + "; the matrix must be square");
+  if (a.dims[0] < 1) throw error(error_kind::input, a_name + " is empty");
+}
+
+void check_rhs_shape(const io::dataset_shape& b, const io::dataset_shape& a,
+                     const std::string& b_name) {
+  const std::string n = std::to_string(a.dims[0]);
+  if (b.dims.empty() || b.dims.size() > 2 || b.dims[0] != a.dims[0])
+    throw error(error_kind::input, b_name + " must have " + n + " rows (A is " + n + " x " + n +
+                                       ") and one or two dimensions");
+  if (b.dims.size() == 2 && b.dims[1] < 1)
+    throw error(error_kind::input, b_name + " has no columns");
+  if (b.is_complex && !a.is_complex)
+    throw error(error_kind::input, b_name + " is complex but A is real");
+}
+
+// Opens and checks the inputs and records what they are in the job.
+inputs open_inputs(const process_grid& grid, job& j) {
+  inputs in{io::file(grid, j.input, io::file::mode::read), std::nullopt, {}, {}};
+  if (!j.rhs_file.empty()) in.other.emplace(grid, j.rhs_file, io::file::mode::read);
+  in.a_shape = in.input.shape(j.matrix_dataset);
+  check_matrix_shape(in.a_shape, j.matrix_dataset + " in " + j.input);
+  require_numbers(in.a_shape, j.matrix_dataset, j.input);
+  in.b_shape = in.rhs().shape(j.rhs_dataset);
+  require_numbers(in.b_shape, j.rhs_dataset, in.rhs().path());
+  check_rhs_shape(in.b_shape, in.a_shape, j.rhs_dataset + " in " + in.rhs().path());
+  const auto a_id = io::identify(j.input);
+  const auto b_id = io::identify(in.rhs().path());
+  j.type = in.a_shape.type;
+  j.n = in.a_shape.dims[0];
+  j.nrhs = in.rhs_1d() ? 1 : in.b_shape.dims[1];
+  j.input_size = a_id.size;
+  j.input_mtime = a_id.mtime;
+  j.rhs_size = b_id.size;
+  j.rhs_mtime = b_id.mtime;
+  return in;
+}
 
 std::string entry_name(const std::string& dataset, std::pair<index_t, index_t> at, bool one_d) {
   return dataset + "[" + std::to_string(at.first) +
@@ -30,432 +195,495 @@ void refuse_nonfinite(const dist_matrix<T>& m, const std::string& dataset, const
   if (auto at = first_nonfinite(m)) {
     // Name the entry as the file's reader sees it.
     if (transposed) std::swap(at->first, at->second);
-    throw error(exit_code::input, entry_name(dataset, *at, one_d) + " in " + path +
-                                      " is not a finite number (NaN or Inf)");
+    throw error(error_kind::input, entry_name(dataset, *at, one_d) + " in " + path +
+                                       " is not a finite number (NaN or Inf)");
   }
 }
 
-std::string text_attribute(const io::file& f, const std::string& key) {
-  return f.get_attribute_as<std::string>("/", key).value_or("");
-}
-std::int64_t integer_attribute(const io::file& f, const std::string& key) {
-  return f.get_attribute_as<std::int64_t>("/", key).value_or(-1);
+// ---------------------------------------------------------------------------------------
+// Saved factors.
+
+// Checks a factors file against the job before its data is read.
+void check_factors_file(const io::file& f, const job& j) {
+  const std::string& path = j.factors;
+  if (text_attribute(f, "gridlu_kind") != "factors")
+    throw error(error_kind::input, path + " is not a gridlu factors file");
+  if (integer_attribute(f, "gridlu_format") != format_version)
+    throw error(error_kind::input, path + " was written in another format than this gridlu's (" +
+                                       std::to_string(format_version) + ")");
+  if (integer_attribute(f, "n") != j.n || text_attribute(f, "type") != j.type)
+    throw error(error_kind::input, "the factors in " + path + " are not of a " +
+                                       std::to_string(j.n) + " x " + std::to_string(j.n) + " " +
+                                       j.type + " matrix like " + j.input);
+  const std::int64_t column_major = integer_attribute(f, "column_major");
+  if (column_major != 0 && column_major != 1)
+    throw error(error_kind::input, path + " lacks a valid attribute column_major");
+  if ((column_major != 0) != j.column_major)
+    throw error(error_kind::usage, "the factors in " + path + " were made from A read " +
+                                       (column_major ? "with" : "without") +
+                                       " --column-major; solve " +
+                                       (column_major ? "with" : "without") + " it too");
+  if (integer_attribute(f, "input_size") != j.input_size)
+    throw error(error_kind::input, "the factors in " + path + " were made from another A (" +
+                                       j.input + " has a different size)");
+  const auto lu = f.shape("LU");
+  if (lu.dims.size() != 2 || lu.dims[0] != j.n || lu.dims[1] != j.n || lu.type != j.type)
+    throw error(error_kind::input, "the dataset LU in " + path + " is not " + std::to_string(j.n) +
+                                       " x " + std::to_string(j.n) + " " + j.type);
 }
 
-// Shape checks of a dataset that must hold numbers gridlu can solve with.
-void require_numbers(const io::dataset_shape& s, const std::string& name, const std::string& path) {
-  if (!s.usable)
-    throw error(exit_code::input, name + " in " + path + " holds " + s.type +
-                                      "; gridlu reads float32, float64 and complex (compound of "
-                                      "floats named r and i)");
+std::vector<index_t> checked_pivots(const io::file& f, index_t n) {
+  auto pivots = f.read_indices("pivots");
+  bool valid = static_cast<index_t>(pivots.size()) == n;
+  for (index_t i = 0; valid && i < n; ++i) valid = pivots[i] >= i && pivots[i] < n;
+  if (!valid) throw error(error_kind::input, "the pivots in " + f.path() + " are damaged");
+  return pivots;
 }
 
-// The input files of a solve, opened and checked.
-struct inputs {
-  io::file input;
-  std::optional<io::file> other;  // B's own file, with --rhs-file
-  index_t n = 0;
-  io::dataset_shape a_shape, b_shape;
-  const io::file& rhs() const { return other ? *other : input; }
+template <scalar T>
+void write_factors(const process_grid& grid, const job& j, const dist_matrix<T>& lu,
+                   const std::vector<index_t>& pivots) {
+  io::staged_output out(grid, j.save_factors,
+                        j.force ? io::existing::replace : io::existing::refuse);
+  {
+    io::file f(grid, out.path(), io::file::mode::create);
+    f.write("LU", lu);
+    f.write_indices("pivots", pivots);
+    write_attributes(f, "/", j);
+    f.set_attribute("/", "gridlu_kind", std::string("factors"));
+    f.set_attribute("/", "gridlu_format", format_version);
+    f.set_attribute("/", "gridlu_version", std::string(version));
+    f.close();
+  }
+  out.commit();
+}
+
+// ---------------------------------------------------------------------------------------
+// The factorization, with checkpoints when the job has a directory: periodic ones, and
+// a last one before stopping on a signal or when the time budget would run out.
+
+struct checkpointing {
+  const checkpoint::directory& dir;
+  checkpoint::progress done;  // of the earlier runs, then updated
 };
 
-inputs open_inputs(const process_grid& grid, const solve_options& o) {
-  inputs in{io::file(grid, o.input, io::file::mode::read), std::nullopt, 0, {}, {}};
-  if (!o.rhs_file.empty()) in.other.emplace(grid, o.rhs_file, io::file::mode::read);
-  const auto& a = in.a_shape = in.input.shape(o.matrix_dataset);
-  const std::string a_name = o.matrix_dataset + " in " + o.input;
-  if (a.dims.size() != 2)
-    throw error(exit_code::input, a_name + " has " + std::to_string(a.dims.size()) +
-                                      " dimensions; the matrix must be 2-D");
-  if (a.dims[0] != a.dims[1])
-    throw error(exit_code::input, a_name + " is " + std::to_string(a.dims[0]) + " x " +
-                                      std::to_string(a.dims[1]) + "; the matrix must be square");
-  if (a.dims[0] < 1) throw error(exit_code::input, a_name + " is empty");
-  require_numbers(a, o.matrix_dataset, o.input);
-  in.n = a.dims[0];
-
-  const auto& b = in.b_shape = in.rhs().shape(o.rhs_dataset);
-  const std::string b_name = o.rhs_dataset + " in " + in.rhs().path();
-  require_numbers(b, o.rhs_dataset, in.rhs().path());
-  const std::string n = std::to_string(in.n);
-  if (b.dims.empty() || b.dims.size() > 2 || b.dims[0] != in.n)
-    throw error(exit_code::input, b_name + " must have " + n + " rows (A is " + n + " x " + n +
-                                      ") and one or two dimensions");
-  if (b.dims.size() == 2 && b.dims[1] < 1)
-    throw error(exit_code::input, b_name + " has no columns");
-  if (b.is_complex && !a.is_complex)
-    throw error(exit_code::input, b_name + " is complex but A is real");
-  return in;
-}
-
-// Set by SIGTERM, SIGUSR1 and SIGINT while a checkpointed factorization runs; the ranks
-// look at it between block steps and agree to stop together.
-volatile std::sig_atomic_t stop_requested = 0;
-extern "C" void request_stop(int) { stop_requested = 1; }
-
-class stop_signals {
+template <scalar T>
+class checkpointed_factor {
 public:
-  stop_signals() {
-    stop_requested = 0;
-    struct sigaction sa {};
-    sa.sa_handler = request_stop;
-    sigemptyset(&sa.sa_mask);
-    for (std::size_t k = 0; k < std::size(signals_); ++k) sigaction(signals_[k], &sa, &saved_[k]);
+  checkpointed_factor(const process_grid& grid, const job& j, const run_settings& run,
+                      dist_matrix<T>& a, checkpointing* ck, solve_result& r)
+      : grid_(grid), job_(j), run_(run), a_(a), ck_(ck), r_(r) {}
+
+  // Returns false when the run stopped early with a checkpoint.
+  bool operator()(lu_result& lu) {
+    const index_t n = a_.rows();
+    done_before_ = total_ - remaining(lu.columns_done);
+    before_ = ck_ ? ck_->done.elapsed_seconds : 0.0;
+    save_estimate_ = budget::first_save_estimate(static_cast<double>(n) * n * sizeof(T));
+    start_ = last_save_ = comm::wtime();
+    lu_options lo;
+    lo.lookahead = static_cast<int>(job_.lookahead);
+    lo.after_step = [&](const lu_result& state) { return after_step(state); };
+    const double seconds = timed(grid_, [&] { lu = factor(a_, std::move(lu), lo); });
+    r_.factor_seconds = seconds;
+    r_.phases = slowest(grid_, lu.phases);
+    r_.gflops = (total_ - done_before_) / seconds * 1e-9;
+    r_.columns_done = lu.columns_done;
+    // With everything eliminated, one last checkpoint covers the solve phase too.
+    if (ck_ && !r_.stopped && saved_at_ != n) save(lu);
+    r_.factor_seconds_total = before_ + seconds;
+    if (ck_) r_.checkpoints = ck_->done.checkpoints;
+    return !r_.stopped;
   }
-  ~stop_signals() {
-    for (std::size_t k = 0; k < std::size(signals_); ++k)
-      sigaction(signals_[k], &saved_[k], nullptr);
-  }
-  stop_signals(const stop_signals&) = delete;
-  stop_signals& operator=(const stop_signals&) = delete;
 
 private:
-  static constexpr int signals_[] = {SIGTERM, SIGUSR1, SIGINT};
-  struct sigaction saved_[3]{};
-};
+  static constexpr std::int64_t signal_flag = 1, periodic_flag = 2, budget_flag = 4;
 
-// The factorization, with checkpoints when a directory is given: periodic ones, and a
-// last one before stopping on a signal or when the time budget would run out.
-template <scalar T>
-bool factor_checkpointed(const process_grid& grid, const solve_options& o, dist_matrix<T>& a,
-                         lu_result& lu, checkpoint::header& ck, solve_result& r) {
-  const index_t n = a.rows();
-  const double total = lu_flops<T>(static_cast<double>(n));
-  const double start = comm::wtime();
-  const double done_before = total - lu_flops<T>(static_cast<double>(n - lu.columns_done));
-  const bool checkpointing = !o.checkpoint_dir.empty();
-  const double before = r.factor_seconds_total;  // earlier runs of this solve
-  // Until a checkpoint has been timed, assume the disk writes (and reads back) 100 MB/s.
-  double save_estimate =
-      2.0 * static_cast<double>(n) * static_cast<double>(n) * sizeof(T) / 100e6 + 0.5;
-  double last_save = start;
-  index_t saved_at = -1;
-  const auto save = [&](const lu_result& state) {
+  double remaining(index_t done) const {
+    return lu_flops<T>(static_cast<double>(a_.rows() - done));
+  }
+
+  void save(const lu_result& state) {
+    ck_->done.columns_done = state.columns_done;
+    ck_->done.elapsed_seconds = before_ + (comm::wtime() - start_);
+    ++ck_->done.checkpoints;
+    save_estimate_ = timed(grid_, [&] { ck_->dir.save(a_, state, ck_->done, job_.id); });
+    r_.write_seconds += save_estimate_;
+    last_save_ = comm::wtime();
+    saved_at_ = state.columns_done;
+  }
+
+  std::int64_t requests(const lu_result& state, double now) {
+    std::int64_t flags = stop_requests::pending() ? signal_flag : 0;
+    if (job_.checkpoint_every > 0 && now - last_save_ >= job_.checkpoint_every)
+      flags |= periodic_flag;
+    const double seconds = now - start_;
     const index_t done = state.columns_done;
-    ck.done.columns_done = done;
-    ck.done.elapsed_seconds = before + (comm::wtime() - start);
-    ++ck.done.checkpoints;
-    save_estimate = timed(grid, [&] { checkpoint::save(grid, o.checkpoint_dir, a, state, ck); });
-    r.write_seconds += save_estimate;
-    last_save = comm::wtime();
-    saved_at = done;
-  };
-  constexpr std::int64_t signal_flag = 1, periodic_flag = 2, budget_flag = 4;
-  lu_options lo;
-  lo.lookahead = o.lookahead;
-  std::optional<bool> over_at_first_step;  // the budget was exceeded at this run's first step
-  lo.after_step = [&](const lu_result& state) {
-    const index_t done = state.columns_done;
-    const double now = comm::wtime(), seconds = now - start;
-    const double flops = total - lu_flops<T>(static_cast<double>(n - done)) - done_before;
-    if (o.progress)
-      o.progress(1.0 - lu_flops<T>(static_cast<double>(n - done)) / total, seconds,
-                 seconds > 0 ? flops / seconds * 1e-9 : 0.0);
-    if (!checkpointing) return step_request::go_on;
-    std::int64_t flags = stop_requested ? signal_flag : 0;
-    if (o.checkpoint_every > 0 && now - last_save >= o.checkpoint_every) flags |= periodic_flag;
-    if (o.stop_after > 0) {
-      // Go on only if the steps that settle the look-ahead, one more, and a checkpoint
-      // still fit in the budget.
-      const double rate = seconds > 0 ? flops / seconds : 0.0;
-      const index_t next = std::min(n, done + (1 + lo.lookahead) * a.block());
-      const double steps_flops =
-          lu_flops<T>(static_cast<double>(n - done)) - lu_flops<T>(static_cast<double>(n - next));
-      const double steps = rate > 0 ? steps_flops / rate : 0.0;
-      const double tail = done == n ? 1.5 * r.read_seconds + 0.5 : 0.0;  // solve, check, write
-      if (now - o.started + steps + tail + 1.25 * save_estimate + 0.5 > o.stop_after)
-        flags |= budget_flag;
+    const index_t next = std::min(a_.rows(), done + (1 + job_.lookahead) * a_.block());
+    budget::step_view v;
+    v.elapsed = now - run_.started;
+    v.budget = run_.stop_after;
+    v.next_flops = remaining(done) - remaining(next);
+    v.rate = seconds > 0 ? (total_ - remaining(done) - done_before_) / seconds : 0.0;
+    v.save_seconds = save_estimate_;
+    v.finished = done == a_.rows();
+    v.read_seconds = r_.read_seconds;
+    if (budget::must_stop(v)) flags |= budget_flag;
+    comm::max(grid_.all(), &flags, 1);
+    return flags;
+  }
+
+  step_request after_step(const lu_result& state) {
+    const double now = comm::wtime(), seconds = now - start_;
+    if (run_.progress) {
+      const double flops = total_ - remaining(state.columns_done) - done_before_;
+      run_.progress(1.0 - remaining(state.columns_done) / total_, seconds,
+                    seconds > 0 ? flops / seconds * 1e-9 : 0.0);
     }
-    comm::max(grid.all(), &flags, 1);
-    if (!over_at_first_step) over_at_first_step = (flags & budget_flag) != 0;
+    if (!ck_) return step_request::go_on;
+    const std::int64_t flags = requests(state, now);
+    if (!over_at_first_step_) over_at_first_step_ = (flags & budget_flag) != 0;
     if (flags == 0) return step_request::go_on;
     if (!state.settled) return step_request::settle;  // a checkpoint needs a settled state
     save(state);
-    if (flags & (signal_flag | budget_flag)) {
-      r.stopped = true;
-      r.budget_too_short = (flags & budget_flag) && *over_at_first_step;
-      return step_request::stop;
-    }
-    return step_request::go_on;
-  };
-  const double seconds = timed(grid, [&] { lu = factor(a, std::move(lu), lo); });
-  r.factor_seconds = seconds;
-  r.phases = slowest(grid, lu.phases);
-  r.gflops = (total - done_before) / seconds * 1e-9;
-  r.columns_done = lu.columns_done;
-  // With everything eliminated, one last checkpoint covers the solve phase too.
-  if (checkpointing && !r.stopped && saved_at != n) save(lu);
-  r.factor_seconds_total = before + seconds;
-  r.checkpoints = ck.done.checkpoints;
-  return !r.stopped;
-}
+    if (!(flags & (signal_flag | budget_flag))) return step_request::go_on;
+    r_.stopped = true;
+    r_.budget_too_short = (flags & budget_flag) && *over_at_first_step_;
+    return step_request::stop;
+  }
 
-template <class V>
-void set_all(io::file& f, const std::string& object,
-             std::initializer_list<std::pair<const char*, V>> attrs) {
-  for (const auto& [key, value] : attrs) f.set_attribute(object, key, value);
-}
+  const process_grid& grid_;
+  const job& job_;
+  const run_settings& run_;
+  dist_matrix<T>& a_;
+  checkpointing* ck_;
+  solve_result& r_;
+  const double total_ = lu_flops<T>(static_cast<double>(a_.rows()));
+  double done_before_ = 0, before_ = 0, save_estimate_ = 0, start_ = 0, last_save_ = 0;
+  index_t saved_at_ = -1;
+  std::optional<bool> over_at_first_step_;  // the budget was exceeded at the first step
+};
+
+// ---------------------------------------------------------------------------------------
+// One run of a job, stage by stage.
 
 template <scalar T>
-solve_result solve_typed(const process_grid& grid, const solve_options& o, const inputs& in,
-                         const std::optional<checkpoint::header>& resumed) {
-  const double start = comm::wtime();
-  const index_t n = in.n;
-  solve_result r;
-  r.n = n;
-  r.type = std::string(scalar_traits<T>::name);
-  r.input = o.input;
-  r.block = o.block;
-  r.output = o.output;
-  const bool rhs_1d = in.b_shape.dims.size() == 1;
-  r.nrhs = rhs_1d ? 1 : in.b_shape.dims[1];
-  r.threshold = 10.0 * static_cast<double>(n) * epsilon<T>();
-  staged_output out(grid, o.output, o.force);
-  std::optional<staged_output> factors_out;
-  if (!o.save_factors.empty()) factors_out.emplace(grid, o.save_factors, o.force);
-  if (!o.checkpoint_dir.empty())
-    checkpoint::prepare(grid, o.checkpoint_dir,
-                        static_cast<double>(n) * static_cast<double>(n) * sizeof(T));
-  const io::file_identity source = io::identify(o.input);
-
-  dist_matrix<T> a(grid, n, n, o.block), b(grid, n, r.nrhs, o.block);
-  lu_result lu;
-  checkpoint::header ck;
-
-  std::optional<io::file> saved;
-  if (!o.factors.empty()) {
-    // Saved factors: they must be gridlu's, of this order and type, made from this A.
-    saved.emplace(grid, o.factors, io::file::mode::read);
-    if (text_attribute(*saved, "gridlu_kind") != "factors")
-      throw error(exit_code::input, o.factors + " is not a gridlu factors file");
-    if (integer_attribute(*saved, "n") != n || text_attribute(*saved, "type") != r.type)
-      throw error(exit_code::input, "the factors in " + o.factors + " are not of a " +
-                                        std::to_string(n) + " x " + std::to_string(n) + " " +
-                                        r.type + " matrix like " + o.input);
-    if (integer_attribute(*saved, "source_size") != source.size)
-      throw error(exit_code::input, "the factors in " + o.factors + " were made from another A (" +
-                                        o.input + " has a different size)");
-    r.refactored = false;
+class job_run {
+public:
+  job_run(const process_grid& grid, job& j, const run_settings& run, const inputs& in,
+          checkpointing* ck)
+      : grid_(grid),
+        j_(j),
+        run_(run),
+        in_(in),
+        ck_(ck),
+        a_(grid, j.n, j.n, j.block),
+        b_(grid, j.n, j.nrhs, j.block) {
+    r_.what = j;
   }
 
-  r.read_seconds = timed(grid, [&] {
-    if (saved) {
-      saved->read("LU", a);
-      lu.pivots = saved->read_indices("pivots");
-      lu.columns_done = n;
-      bool valid = static_cast<index_t>(lu.pivots.size()) == n;
-      for (index_t i = 0; valid && i < n; ++i) valid = lu.pivots[i] >= i && lu.pivots[i] < n;
-      if (!valid) throw error(exit_code::input, "the pivots in " + o.factors + " are damaged");
-    } else if (resumed) {
+  solve_result operator()() {
+    const double start = comm::wtime();
+    r_.threshold = 10.0 * static_cast<double>(j_.n) * epsilon<T>();
+    std::optional<io::file> factors;
+    if (!j_.factors.empty()) factors.emplace(grid_, j_.factors, io::file::mode::read);
+    if (factors) check_factors_file(*factors, j_);
+    const bool from_state = ck_ && ck_->dir.has_state();
+    r_.read_seconds = timed(grid_, [&] { read(factors ? &*factors : nullptr, from_state); });
+    if (!factors) {
+      if (!checkpointed_factor<T>(grid_, j_, run_, a_, ck_, r_)(lu_)) {
+        r_.what = j_;
+        r_.total_seconds = comm::wtime() - start;
+        return r_;
+      }
+      refuse_singular();
+      if (!j_.save_factors.empty())
+        r_.write_seconds += timed(grid_, [&] { write_factors(grid_, j_, a_, lu_.pivots); });
+    }
+    dist_matrix<T> x = solve_and_check(factors ? &*factors : nullptr);
+    r_.write_seconds += timed(grid_, [&] { write_solution(x); });
+    finish();
+    r_.what = j_;
+    r_.total_seconds = comm::wtime() - start;
+    return r_;
+  }
+
+private:
+  void read(const io::file* factors, bool from_state) {
+    if (factors) {
+      factors->read("LU", a_);
+      lu_.pivots = checked_pivots(*factors, j_.n);
+      lu_.columns_done = j_.n;
+      r_.refactored = false;
+    } else if (from_state) {
       // The inputs must be the ones the checkpoint was made from.
-      if (in.input.checksum<T>(o.matrix_dataset, o.column_major) != resumed->what.a_checksum)
-        throw error(exit_code::input,
-                    o.matrix_dataset + " in " + o.input +
-                        " changed since the checkpoint was made; it cannot be resumed");
-      lu = checkpoint::load(grid, o.checkpoint_dir, a);
+      if (io::checksum_text(in_.input.checksum<T>(j_.matrix_dataset, j_.column_major)) !=
+          j_.a_checksum)
+        throw error(error_kind::input, j_.matrix_dataset + " in " + j_.input +
+                                           " changed since the checkpoint was made; it cannot "
+                                           "be resumed");
+      lu_ = ck_->dir.load(a_);
     } else {
-      in.input.read(o.matrix_dataset, a, o.column_major);
-      refuse_nonfinite(a, o.matrix_dataset, o.input, false, o.column_major);
+      in_.input.read(j_.matrix_dataset, a_, j_.column_major);
+      refuse_nonfinite(a_, j_.matrix_dataset, j_.input, false, j_.column_major);
+      j_.a_checksum = io::checksum_text(content_checksum(a_));
     }
-    in.rhs().read(o.rhs_dataset, b, false);
-    refuse_nonfinite(b, o.rhs_dataset, in.rhs().path(), rhs_1d, false);
-  });
-
-  if (!saved) {
-    const std::uint64_t b_sum = content_checksum(b);
-    if (resumed) {
-      ck = *resumed;
-      if (b_sum != ck.what.b_checksum)
-        throw error(exit_code::input,
-                    o.rhs_dataset + " in " + in.rhs().path() +
-                        " changed since the checkpoint was made; it cannot be resumed");
-      ++ck.done.restarts;
-      ck.what.block = o.block;
-      ck.what.output = std::filesystem::absolute(o.output).string();
-      r.factor_seconds_total = ck.done.elapsed_seconds;
-    } else {
-      const auto rhs_identity = io::identify(in.rhs().path());
-      // Absolute paths: the next allocation may start in another directory.
-      const auto absolute = [](const std::string& p) {
-        return p.empty() ? p : std::filesystem::absolute(p).string();
-      };
-      ck.what = {absolute(o.input),
-                 absolute(o.output),
-                 o.matrix_dataset,
-                 o.rhs_dataset,
-                 absolute(o.rhs_file),
-                 absolute(o.save_factors),
-                 o.column_major,
-                 r.type,
-                 n,
-                 r.nrhs,
-                 o.block,
-                 source.size,
-                 rhs_identity.size,
-                 source.mtime,
-                 rhs_identity.mtime,
-                 content_checksum(a),
-                 b_sum};
-    }
-    r.restarts = ck.done.restarts;
-    if (!factor_checkpointed(grid, o, a, lu, ck, r)) {
-      r.total_seconds = comm::wtime() - start;
-      return r;
-    }
-    if (lu.first_zero_pivot >= 0)
-      throw error(exit_code::singular, "A is exactly singular: the pivot of column " +
-                                           std::to_string(lu.first_zero_pivot) +
-                                           " (0-based) is zero; no solution written");
-    if (factors_out) {
-      r.write_seconds += timed(grid, [&] {
-        io::file f(grid, factors_out->temporary(), io::file::mode::create);
-        f.write("LU", a);
-        f.write_indices("pivots", lu.pivots);
-        set_all<io::attribute>(f, "/",
-                               {{"gridlu_kind", std::string("factors")},
-                                {"gridlu_format", format_version},
-                                {"gridlu_version", std::string(version)},
-                                {"type", r.type},
-                                {"n", std::int64_t{n}},
-                                {"source_file", source.path},
-                                {"source_size", source.size},
-                                {"source_mtime", source.mtime},
-                                {"source_checksum", io::checksum_text(ck.what.a_checksum)},
-                                {"matrix_dataset", o.matrix_dataset},
-                                {"column_major", std::int64_t{o.column_major}}});
-        f.close();
-        factors_out->commit();
-      });
-    }
+    in_.rhs().read(j_.rhs_dataset, b_, false);
+    refuse_nonfinite(b_, j_.rhs_dataset, in_.rhs().path(), in_.rhs_1d(), false);
+    const std::string b_sum = io::checksum_text(content_checksum(b_));
+    if (from_state && b_sum != j_.b_checksum)
+      throw error(error_kind::input, j_.rhs_dataset + " in " + in_.rhs().path() +
+                                         " changed since the checkpoint was made; it cannot be "
+                                         "resumed");
+    j_.b_checksum = b_sum;
+    if (ck_) ck_->dir.record_job(to_json(j_).dump(2) + "\n");
   }
 
-  dist_matrix<T> x(grid, n, r.nrhs, o.block);
-  std::copy_n(b.data(), b.ld() * b.local_cols(), x.data());
-  r.solve_seconds = timed(grid, [&] { solve(a, lu.pivots, x); });
+  void refuse_singular() const {
+    if (lu_.first_zero_pivot >= 0)
+      throw error(error_kind::singular, "A is exactly singular: the pivot of column " +
+                                            std::to_string(lu_.first_zero_pivot) +
+                                            " (0-based) is zero; no solution written");
+  }
 
-  // The factors overwrote A: read it again into the same storage for the residual.
-  r.check_seconds = timed(grid, [&] {
-    in.input.read(o.matrix_dataset, a, o.column_major);
-    if (saved) {
-      refuse_nonfinite(a, o.matrix_dataset, o.input, false, o.column_major);
-      if (text_attribute(*saved, "source_checksum") != io::checksum_text(content_checksum(a)))
-        throw error(exit_code::input, "the factors in " + o.factors + " do not belong to " +
-                                          o.input + ": its matrix differs from theirs");
+  dist_matrix<T> solve_and_check(const io::file* factors) {
+    dist_matrix<T> x(grid_, j_.n, j_.nrhs, j_.block);
+    std::copy_n(b_.data(), b_.ld() * b_.local_cols(), x.data());
+    r_.solve_seconds = timed(grid_, [&] { solve(a_, lu_.pivots, x); });
+    // The factors overwrote A: read it again into the same storage for the residual.
+    r_.check_seconds = timed(grid_, [&] {
+      in_.input.read(j_.matrix_dataset, a_, j_.column_major);
+      if (factors) {
+        refuse_nonfinite(a_, j_.matrix_dataset, j_.input, false, j_.column_major);
+        if (text_attribute(*factors, "a_checksum") != io::checksum_text(content_checksum(a_)))
+          throw error(error_kind::input, "the factors in " + j_.factors + " do not belong to " +
+                                             j_.input + ": its matrix differs from theirs");
+      }
+      r_.backward_errors = backward_errors(a_, x, b_);
+    });
+    return x;
+  }
+
+  void write_solution(const dist_matrix<T>& x) {
+    io::staged_output out(grid_, j_.output,
+                          j_.force ? io::existing::replace : io::existing::refuse);
+    {
+      io::file f(grid_, out.path(), io::file::mode::create);
+      f.write("X", x, in_.rhs_1d());
+      // Per right-hand side figures go in a dataset: attributes have a size limit.
+      dist_matrix<double> errors(grid_, j_.nrhs, 1, j_.block);
+      errors.fill([&](index_t i, index_t) { return r_.backward_errors[i]; });
+      f.write("backward_errors", errors, true);
+      write_attributes(f, "/", j_);
+      f.set_attribute("/", "gridlu_kind", std::string("solution"));
+      f.set_attribute("/", "gridlu_format", format_version);
+      f.set_attribute("/", "gridlu_version", std::string(version));
+      f.set_attribute("/X", "backward_error", r_.worst_backward_error());
+      f.set_attribute("/X", "factor_seconds", r_.factor_seconds);
+      f.set_attribute("/X", "gflops", r_.gflops);
+      f.set_attribute("/X", "grid",
+                      std::to_string(grid_.prows()) + "x" + std::to_string(grid_.pcols()));
+      f.set_attribute("/X", "ranks", std::int64_t{grid_.size()});
+      f.close();
     }
-    r.backward_errors = backward_errors(a, x, b);
-  });
-
-  r.write_seconds += timed(grid, [&] {
-    io::file f(grid, out.temporary(), io::file::mode::create);
-    f.write("X", x, rhs_1d);
-    const double worst = *std::max_element(r.backward_errors.begin(), r.backward_errors.end());
-    set_all<io::attribute>(f, "/",
-                           {{"gridlu_kind", std::string("solution")},
-                            {"gridlu_format", format_version},
-                            {"gridlu_version", std::string(version)},
-                            {"source_file", source.path}});
-    set_all<io::attribute>(
-        f, "/X",
-        {{"backward_error", worst},
-         {"backward_errors", r.backward_errors},
-         {"factor_seconds", r.factor_seconds},
-         {"gflops", r.gflops},
-         {"grid", std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols())},
-         {"block", std::int64_t{o.block}},
-         {"ranks", std::int64_t{grid.size()}},
-         {"type", r.type}});
-    f.close();
     out.commit();
-  });
-  if (!o.checkpoint_dir.empty()) checkpoint::mark_complete(grid, o.checkpoint_dir, o.output);
-  r.total_seconds = comm::wtime() - start;
+  }
+
+  // X is safely written: the job is complete and its working state can go.
+  void finish() {
+    if (!ck_) return;
+    ck_->dir.record_completion(nlohmann::json{{"job_id", j_.id}, {"output", j_.output}}.dump(2) +
+                               "\n");
+    ck_->dir.remove_state();
+    r_.state_removed = true;
+  }
+
+  const process_grid& grid_;
+  job& j_;
+  const run_settings& run_;
+  const inputs& in_;
+  checkpointing* ck_;
+  dist_matrix<T> a_, b_;
+  lu_result lu_;
+  solve_result r_;
+};
+
+solve_result run_job(const process_grid& grid, job& j, const run_settings& run, const inputs& in,
+                     checkpointing* ck) {
+  solve_result result;
+  dispatch_scalar(j.type, [&]<class T>(T) { result = job_run<T>(grid, j, run, in, ck)(); });
+  return result;
+}
+
+// ---------------------------------------------------------------------------------------
+// Checkpoint directories: whose they are, and what a new solve may do with them.
+
+std::string describe_job(const job& j, const checkpoint::directory& dir, bool finished) {
+  std::string what = "a solve of " + j.input + " -> " + j.output;
+  if (finished) return what + ", finished";
+  if (!dir.has_state()) return what + ", not yet at its first checkpoint";
+  try {
+    const auto s = dir.summary();
+    char percent[32];
+    std::snprintf(percent, sizeof percent, "%.1f", percent_of_flops(s.n, s.done.columns_done));
+    return what + ", " + percent + " % of its flops done";
+  } catch (const error&) {
+    return what + ", with a damaged checkpoint";
+  }
+}
+
+// A new solve may use the directory if it is empty or its job finished; another job's
+// state is discarded only with --force, and the same job is continued by `resume`.
+void claim_directory(const checkpoint::directory& dir, const job& j, const run_settings& run) {
+  const std::string text = dir.job();
+  const bool finished = !dir.completion().empty() && !dir.has_state();
+  if (text.empty() && !dir.has_state() && dir.completion().empty()) return;
+  std::optional<job> previous;
+  try {
+    previous = job_from_json(text, dir.path());
+  } catch (const error&) {
+  }
+  const std::string what = previous ? describe_job(*previous, dir, finished) : "an unreadable job";
+  if (!finished && !j.force) {
+    if (previous && same_work(*previous, j))
+      throw error(error_kind::usage, dir.path() + " holds this solve's checkpoint (" + what +
+                                         "); continue it with `gridlu resume " + dir.path() +
+                                         "`, or pass --force to start over");
+    throw error(error_kind::usage, dir.path() + " holds the checkpoint of another job (" + what +
+                                       "); pass --force to discard it, or use another directory");
+  }
+  if (run.notice)
+    run.notice((finished ? "forgetting the finished job in " : "discarding, as --force asks, ") +
+               dir.path() + ": " + what);
+  dir.clear();
+}
+
+checkpoint::progress progress_of(const checkpoint::directory& dir, const job& j) {
+  if (!dir.has_state()) return {};
+  const auto s = dir.summary();
+  if (s.job_id != j.id)
+    throw error(error_kind::input, "the checkpoint in " + dir.path() +
+                                       " belongs to another job than its job.json; it cannot be "
+                                       "resumed");
+  if (s.type != j.type || s.n != j.n)
+    throw error(error_kind::input, "the checkpoint in " + dir.path() +
+                                       " is not of the job's matrix; it cannot be resumed");
+  return s.done;
+}
+
+// Runs a job whose directory is held: records the job first, so that a kill at any
+// later moment leaves something `resume` can continue.
+solve_result run_checkpointed(const process_grid& grid, job& j, const run_settings& run,
+                              const checkpoint::directory& dir, bool resumed) {
+  dir.record_job(to_json(j).dump(2) + "\n");
+  checkpointing ck{dir, progress_of(dir, j)};
+  if (resumed) ++ck.done.restarts;
+  const job recorded = j;
+  const inputs in = open_inputs(grid, j);
+  if (resumed && (j.n != recorded.n || j.type != recorded.type))
+    throw error(error_kind::input, j.matrix_dataset + " in " + j.input +
+                                       " is no longer the matrix of the job in " + dir.path());
+  dir.require_space(static_cast<double>(j.n) * static_cast<double>(j.n) * element_bytes(j.type));
+  auto r = run_job(grid, j, run, in, &ck);
+  r.restarts = ck.done.restarts;
   return r;
 }
 
-solve_result solve_inputs(const process_grid& grid, const solve_options& o, const inputs& in,
-                          const std::optional<checkpoint::header>& resumed) {
-  solve_result result;
-  dispatch_scalar(in.a_shape.type,
-                  [&]<class T>(T) { result = solve_typed<T>(grid, o, in, resumed); });
-  return result;
+// The job's X, if it is in place: a solution file tagged with the job's identity.
+bool solution_in_place(const process_grid& grid, const job& j) {
+  std::int64_t present = 0;
+  if (grid.rank() == 0) present = std::filesystem::exists(j.output) ? 1 : 0;
+  comm::broadcast(grid.all(), &present, 1, 0);
+  if (!present) return false;
+  try {
+    const io::file x(grid, j.output, io::file::mode::read);
+    return text_attribute(x, "job_id") == j.id;
+  } catch (const error&) {
+    return false;
+  }
+}
+
+// `resume` of a finished job: nothing to do if its X is in place; X written again from
+// the job's saved factors if they are there; otherwise the reason it cannot be.
+solve_result finish_again(const process_grid& grid, job j, const run_settings& run,
+                          const checkpoint::directory& dir) {
+  if (solution_in_place(grid, j)) {
+    solve_result r;
+    r.what = j;
+    r.already_complete = true;
+    return r;
+  }
+  std::int64_t factors = 0;
+  if (grid.rank() == 0 && !j.save_factors.empty())
+    factors = std::filesystem::exists(j.save_factors) ? 1 : 0;
+  comm::broadcast(grid.all(), &factors, 1, 0);
+  if (!factors)
+    throw error(error_kind::input,
+                "the job in " + dir.path() + " finished, but its X (" + j.output +
+                    ") is not there, and it cannot be written again: the working state was "
+                    "removed once X was written and the job saved no factors (--save-factors); "
+                    "solve again");
+  j.factors = std::exchange(j.save_factors, "");
+  j.checkpoint_dir.clear();  // this run needs no checkpoints: the factors are there
+  if (run.notice)
+    run.notice("the job in " + dir.path() + " finished but its X is not in " + j.output +
+               "; writing it again from the saved factors " + j.factors);
+  check_paths(grid, j, run.report);
+  const inputs in = open_inputs(grid, j);
+  auto r = run_job(grid, j, run, in, nullptr);
+  dir.record_completion(nlohmann::json{{"job_id", j.id}, {"output", j.output}}.dump(2) + "\n");
+  return r;
+}
+
+job recorded_job(const checkpoint::directory& dir) {
+  const std::string text = dir.job();
+  if (text.empty())
+    throw error(error_kind::input,
+                "no gridlu job in " + dir.path() +
+                    (dir.has_state() ? " (a checkpoint without its job.json)" : ""));
+  return job_from_json(text, (std::filesystem::path(dir.path()) / "job.json").string());
+}
+
+// The finished job's marker, if it is this job's.
+bool completed(const checkpoint::directory& dir, const job& j) {
+  const auto marker = nlohmann::json::parse(dir.completion(), nullptr, false);
+  return marker.is_object() && marker.contains("job_id") && marker["job_id"].is_string() &&
+         marker["job_id"].get<std::string>() == j.id;
 }
 
 }  // namespace
 
-solve_result solve_file(const process_grid& grid, const solve_options& o) {
-  require_block(o.block);
-  if (!o.factors.empty() && !o.save_factors.empty())
-    throw error(exit_code::usage, "--factors and --save-factors do not go together");
-  if (!o.factors.empty() && !o.checkpoint_dir.empty())
-    throw error(exit_code::usage, "--factors needs no factorization and so no --checkpoint");
-  if ((o.checkpoint_every > 0 || o.stop_after > 0) && o.checkpoint_dir.empty())
-    throw error(exit_code::usage, "--checkpoint-every and --stop-after need --checkpoint DIR");
-  // Signals count from the start: one during the reading stops at the first step.
-  std::optional<stop_signals> signals;
-  if (!o.checkpoint_dir.empty()) signals.emplace();
-  return solve_inputs(grid, o, open_inputs(grid, o), std::nullopt);
-}
-
-solve_result resume_dir(const process_grid& grid, const resume_options& ro) {
-  if (ro.block != 0) require_block(ro.block);  // 0: the checkpoint's own
-  if (const auto output = checkpoint::completed(ro.dir)) {
-    solve_result r;
-    r.already_complete = true;
-    r.output = *output;
-    return r;
+solve_result solve_file(const process_grid& grid, const solve_options& o, const run_settings& run) {
+  check_options(o);
+  job j = job_of(o);
+  comm::broadcast(grid.all(), j.id, 0);  // one identity, rank 0's
+  check_paths(grid, j, run.report);
+  if (j.checkpoint_dir.empty()) {
+    const inputs in = open_inputs(grid, j);
+    return run_job(grid, j, run, in, nullptr);
   }
-  const stop_signals signals;
-  const auto h = checkpoint::load_header(grid, ro.dir);
-  const auto& w = h.what;
-  solve_options o;
-  o.input = w.input;
-  o.output = ro.output.empty() ? w.output : ro.output;
-  o.matrix_dataset = w.matrix_dataset;
-  o.rhs_dataset = w.rhs_dataset;
-  o.rhs_file = w.rhs_file;
-  o.column_major = w.column_major;
-  o.save_factors = w.save_factors;
-  o.block = ro.block > 0 ? ro.block : w.block;
-  o.lookahead = ro.lookahead;
-  o.force = ro.force;
-  o.progress = ro.progress;
-  o.checkpoint_dir = ro.dir;
-  o.checkpoint_every = ro.checkpoint_every;
-  o.stop_after = ro.stop_after;
-  o.started = ro.started;
-  const inputs in = open_inputs(grid, o);
-  if (in.n != w.n || in.a_shape.type != w.type)
-    throw error(exit_code::input, o.matrix_dataset + " in " + o.input +
-                                      " is no longer the matrix of the checkpoint in " + ro.dir);
-  return solve_inputs(grid, o, in, h);
+  // Signals count from the start: one during the reading stops at the first step.
+  const stop_requests stops;
+  const checkpoint::directory dir(grid, j.checkpoint_dir);
+  claim_directory(dir, j, run);
+  return run_checkpointed(grid, j, run, dir, false);
 }
 
-void generate_file(const process_grid& grid, const generate_options& o) {
-  if (o.n < 1) throw error(exit_code::usage, "--n must be at least 1");
-  if (o.nrhs < 1) throw error(exit_code::usage, "--rhs must be at least 1");
-  staged_output out(grid, o.output, o.force);
-  const bool known = dispatch_scalar(o.type, [&]<class T>(T) {
-    dist_matrix<T> a(grid, o.n, o.n, default_block), b(grid, o.n, o.nrhs, default_block);
-    a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
-    b.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); });
-    io::file f(grid, out.temporary(), io::file::mode::create);
-    f.write("A", a);
-    f.write("B", b);
-    set_all<io::attribute>(f, "/",
-                           {{"gridlu_kind", std::string("system")},
-                            {"gridlu_format", format_version},
-                            {"gridlu_version", std::string(version)},
-                            {"generator", std::string("random")},
-                            {"seed", static_cast<std::int64_t>(o.seed)},
-                            {"n", std::int64_t{o.n}},
-                            {"nrhs", std::int64_t{o.nrhs}},
-                            {"type", o.type}});
-    f.close();
-    out.commit();
-  });
-  if (!known)
-    throw error(exit_code::usage, "unknown element type '" + o.type +
-                                      "' (float32, float64, complex64 or complex128)");
+solve_result resume_dir(const process_grid& grid, const resume_options& ro,
+                        const run_settings& run) {
+  if (ro.block != 0) require_block(ro.block);  // 0: the job's own
+  const stop_requests stops;
+  const checkpoint::directory dir(grid, absolute(ro.dir));
+  job j = recorded_job(dir);
+  if (ro.block > 0) j.block = ro.block;
+  if (ro.lookahead >= 0) j.lookahead = ro.lookahead;
+  if (!ro.output.empty()) j.output = absolute(ro.output);
+  if (ro.checkpoint_every >= 0) j.checkpoint_every = ro.checkpoint_every;
+  j.force = j.force || ro.force;
+  j.checkpoint_dir = dir.path();
+  if (completed(dir, j)) return finish_again(grid, j, run, dir);
+  check_paths(grid, j, run.report);
+  return run_checkpointed(grid, j, run, dir, true);
 }
 
 }  // namespace gridlu::workflows

@@ -26,6 +26,12 @@ inline lu_phases slowest(const process_grid& grid, lu_phases p) {
   return p;
 }
 
+// Percent of an order-n factorization's flops done after k columns.
+inline double percent_of_flops(index_t n, index_t k) {
+  const double total = lu_flops<double>(static_cast<double>(n));
+  return n > 0 ? 100.0 * (1.0 - lu_flops<double>(static_cast<double>(n - k)) / total) : 0.0;
+}
+
 inline double median(std::vector<double> v) {
   std::sort(v.begin(), v.end());
   const std::size_t m = v.size() / 2;

@@ -9,6 +9,7 @@
 
 #include "gridlu/grid.hpp"
 #include "gridlu/lu.hpp"
+#include "workflows/job.hpp"
 
 namespace gridlu::workflows {
 
@@ -20,7 +21,7 @@ inline constexpr index_t default_block = 224;
 inline constexpr int default_lookahead = 1;
 
 inline void require_block(index_t block) {
-  if (block < 1) throw error(exit_code::usage, "the block size must be at least 1");
+  if (block < 1) throw error(error_kind::usage, "the block size must be at least 1");
 }
 
 struct bench_options {
@@ -39,6 +40,7 @@ struct bench_result {
   double gemm_gflops = 0;  // the same ranks running GEMM at once, median of three
   lu_phases phases;        // of the median run: the largest over the ranks, per phase
   index_t gemm_order = 0;
+  nlohmann::json json(const bench_options& asked) const;
 };
 
 // Factors a generated matrix in memory (no files) and measures the GEMM rate of the
@@ -56,6 +58,7 @@ struct read_bench_result {
   std::vector<double> seconds;  // one per repetition
   double median = 0;
   double bytes = 0;  // size of the dataset in memory
+  nlohmann::json json(const read_bench_options& asked) const;
 };
 
 // Reads one dataset of an HDF5 file into a distributed matrix, `repeat` times.
@@ -76,6 +79,9 @@ struct demo_result {
   std::vector<double> backward_errors;  // one per right-hand side
   double threshold = 0;                 // acceptable backward error for the type
   index_t first_zero_pivot = -1;
+  double worst_backward_error() const;
+  bool accepted() const { return first_zero_pivot < 0 && worst_backward_error() <= threshold; }
+  nlohmann::json json(const demo_options& asked) const;
 };
 
 // Generates a random system A X = B, factors, solves and checks the backward error.
@@ -83,25 +89,36 @@ demo_result demo(const process_grid& grid, const demo_options& options);
 
 // Progress of a factorization: fraction of its flops done, seconds so far, GFLOP/s so far.
 using progress_callback = std::function<void(double fraction, double seconds, double gflops)>;
+// Something the user should know at once (what --force discards, for instance).
+using notice_callback = std::function<void(const std::string&)>;
 
+// What the command line asks of a solve; the workflow turns it into a job.
 struct solve_options {
   std::string input, output;
   std::string matrix_dataset = "A", rhs_dataset = "B", rhs_file;  // rhs_file empty: input
   index_t block = default_block;
   int lookahead = default_lookahead;
-  bool column_major = false;  // the file holds the transpose of A
-  bool force = false;
+  bool column_major = false;          // the file holds the transpose of A
+  bool force = false;                 // replace existing outputs; discard another job's checkpoint
   std::string save_factors, factors;  // paths, or empty
-  progress_callback progress;
+  std::string report;                 // this run's report: checked with the other outputs
   // Checkpointing: a directory (empty: none), the period and the time budget of this
-  // run in seconds (0: none), and when the run started (comm::wtime()).
+  // run in seconds (0: none).
   std::string checkpoint_dir;
-  double checkpoint_every = 0, stop_after = 0, started = 0;
+  double checkpoint_every = 0, stop_after = 0;
+};
+
+// What a run of a solve job must know beyond the job itself.
+struct run_settings {
+  double started = 0;     // comm::wtime() when the program started
+  double stop_after = 0;  // seconds; 0: no budget
+  std::string report;     // this run's report file, or empty
+  progress_callback progress;
+  notice_callback notice;
 };
 
 struct solve_result {
-  index_t n = 0, nrhs = 0, block = 0;
-  std::string type;
+  job what;                // the job as run
   bool refactored = true;  // false when saved factors were used
   double read_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0,
          write_seconds = 0, total_seconds = 0;
@@ -109,35 +126,42 @@ struct solve_result {
   lu_phases phases;  // of this run's factorization: the largest over the ranks, per phase
   std::vector<double> backward_errors;
   double threshold = 0;  // accepted backward error for the type: 10 n eps
-  // Checkpointing: stopped early (by a signal or the time budget) with a checkpoint.
+  // Stopped early (by a signal or the time budget) with a checkpoint.
   bool stopped = false;
   // The time budget ran out at this run's first block step: the fixed costs of a run
   // (start-up, reading, a checkpoint write) left it no room to make headway.
   bool budget_too_short = false;
-  bool already_complete = false;  // resume of a finished solve: nothing was done
-  std::string input, output;      // where A came from, where X is (or will be) written
+  bool already_complete = false;  // resume of a finished job whose X is in place
+  bool state_removed = false;     // the checkpoint's working state, once X was written
   index_t columns_done = 0;
-  double factor_seconds_total = 0;  // over all runs of a checkpointed solve
+  double factor_seconds_total = 0;  // over all runs of a checkpointed job
   std::int64_t restarts = 0, checkpoints = 0;
+
+  double worst_backward_error() const;
+  bool accepted() const { return worst_backward_error() <= threshold; }
+  nlohmann::json json() const;  // the report's figures
 };
 
 // Reads A and B from HDF5, factors (or loads saved factors), solves, checks the backward
-// error against A re-read from its file, writes X. Throws gridlu::error, agreed by all
-// ranks; no output file is left behind on failure.
-solve_result solve_file(const process_grid& grid, const solve_options& options);
+// error against A re-read from its file, writes X. Every output is checked against every
+// input before any work; all are written whole or not at all. Throws gridlu::error,
+// agreed by all ranks.
+solve_result solve_file(const process_grid& grid, const solve_options& options,
+                        const run_settings& run);
 
 struct resume_options {
   std::string dir;
-  index_t block = 0;  // 0: the block size the checkpoint was made with
-  int lookahead = default_lookahead;
-  std::string output;  // empty: the one recorded in the checkpoint
-  bool force = false;
-  double checkpoint_every = 0, stop_after = 0, started = 0;
-  progress_callback progress;
+  index_t block = 0;             // 0: the job's own
+  int lookahead = -1;            // negative: the job's own
+  std::string output;            // empty: the job's own
+  bool force = false;            // replace existing outputs even if the job did not ask to
+  double checkpoint_every = -1;  // seconds; negative: the job's own
 };
 
-// Continues the checkpointed solve in options.dir on this grid, possibly another one.
-solve_result resume_dir(const process_grid& grid, const resume_options& options);
+// Continues (or finishes) the checkpointed job in options.dir on this grid, possibly
+// another one; needs nothing the first run was given.
+solve_result resume_dir(const process_grid& grid, const resume_options& options,
+                        const run_settings& run);
 
 struct generate_options {
   index_t n = 0, nrhs = 1;

@@ -1,0 +1,78 @@
+// Communication internals of the algorithms: point-to-point messages, the pivot
+// reduction, non-blocking broadcasts, all-to-all and gathers. Not part of the public
+// headers: a library user needs only the grid and the collectives in gridlu/grid.hpp.
+#pragma once
+
+#include <cstdint>
+#include <vector>
+
+#include "gridlu/grid.hpp"
+
+namespace gridlu::comm {
+
+template <class T>
+void send(const communicator& c, const T* data, index_t count, int dest);
+template <class T>
+void receive(const communicator& c, T* data, index_t count, int source);
+
+// Bitwise exclusive or of unsigned 64-bit words (order-independent checksums).
+void bit_xor(const communicator& c, std::uint64_t* data, index_t count);
+
+// Pivot candidate: largest magnitude wins, equal magnitudes go to the smaller row,
+// which is how LAPACK's first-maximum search breaks ties. No candidate: row -1.
+struct candidate {
+  double magnitude;
+  index_t row;
+};
+
+// One reduction per column of a panel: every rank brings its best candidate with that
+// row's `width` entries in pivot_row, and the rank holding the diagonal row brings it in
+// diagonal_row. Every rank returns with the winner, its entries in pivot_row, and the
+// diagonal row's entries in diagonal_row, so both rows of the interchange travel in the
+// message that finds the pivot.
+template <class T>
+candidate best_with_rows(const communicator& c, candidate mine, T* pivot_row, T* diagonal_row,
+                         bool holds_diagonal, index_t width);
+
+// A non-blocking operation in flight. Destruction waits for it: its buffers must
+// outlive it.
+class request {
+public:
+  request() = default;
+  explicit request(MPI_Request r) : r_(r) {}
+  ~request();
+  request(request&& other) noexcept;
+  request& operator=(request&& other) noexcept;
+  request(const request&) = delete;
+  request& operator=(const request&) = delete;
+
+  bool test();  // lets MPI progress it; true once complete
+  void wait();
+
+private:
+  MPI_Request r_ = MPI_REQUEST_NULL;
+};
+
+// Non-blocking broadcast; every rank of c starts it, in the same order as c's other
+// collectives.
+template <class T>
+request start_broadcast(const communicator& c, T* data, index_t count, int root);
+
+// All-to-all with per-rank element counts; displacements follow the rank order.
+template <class T>
+void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts, T* recv,
+                const std::vector<int>& recv_counts);
+
+// Concatenates every rank's block on root, in rank order; counts known on root.
+template <class T>
+void gather(const communicator& c, const T* send, index_t count, T* recv,
+            const std::vector<index_t>& counts, int root);
+template <class T>
+void scatter(const communicator& c, const T* send, const std::vector<index_t>& counts, T* recv,
+             index_t count, int root);
+// Every rank brings its block and gets all blocks concatenated in rank order.
+template <class T>
+void all_gather(const communicator& c, const T* send, index_t count, T* recv,
+                const std::vector<index_t>& counts);
+
+}  // namespace gridlu::comm

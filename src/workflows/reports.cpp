@@ -1,0 +1,117 @@
+// Each result's figures as the JSON of a report; the command line adds the grid and the
+// versions every report carries.
+#include <algorithm>
+#include <cmath>
+
+#include "workflows/timing.hpp"
+#include "workflows/workflows.hpp"
+
+namespace gridlu::workflows {
+namespace {
+
+nlohmann::json phases_json(const lu_phases& p) {
+  return {{"panel", p.panel},
+          {"pivot_search", p.pivot_search},
+          {"interchange", p.interchange},
+          {"broadcast", p.broadcast},
+          {"trsm", p.trsm},
+          {"gemm", p.gemm},
+          {"wait", p.wait}};
+}
+
+// The largest, NaN if any is: a NaN backward error must not look like a good one.
+double worst(const std::vector<double>& values) {
+  double w = 0;
+  for (const double v : values) {
+    if (std::isnan(v)) return v;
+    w = std::max(w, v);
+  }
+  return w;
+}
+
+}  // namespace
+
+double solve_result::worst_backward_error() const { return worst(backward_errors); }
+double demo_result::worst_backward_error() const { return worst(backward_errors); }
+
+nlohmann::json solve_result::json() const {
+  nlohmann::json j = {{"command", "solve"},
+                      {"job", to_json(what)},
+                      {"input", what.input},
+                      {"output", what.output},
+                      {"n", what.n},
+                      {"nrhs", what.nrhs},
+                      {"type", what.type},
+                      {"block", what.block},
+                      {"refactored", refactored},
+                      {"times",
+                       {{"read", read_seconds},
+                        {"factor", factor_seconds},
+                        {"solve", solve_seconds},
+                        {"check", check_seconds},
+                        {"write", write_seconds},
+                        {"total", total_seconds}}},
+                      {"gflops", gflops},
+                      {"phases", phases_json(phases)}};
+  if (!what.checkpoint_dir.empty())
+    j["checkpoint"] = {{"dir", what.checkpoint_dir},
+                       {"columns_done", columns_done},
+                       {"flops_done_percent", percent_of_flops(what.n, columns_done)},
+                       {"factor_seconds_all_runs", factor_seconds_total},
+                       {"restarts", restarts},
+                       {"checkpoints", checkpoints},
+                       {"budget_too_short", budget_too_short},
+                       {"state_removed", state_removed}};
+  if (stopped) {
+    j["status"] = "stopped";
+    return j;
+  }
+  j.update({{"backward_error", worst_backward_error()},
+            {"backward_errors", backward_errors},
+            {"threshold", threshold},
+            {"status", accepted() ? "solved" : "suspect"}});
+  return j;
+}
+
+nlohmann::json bench_result::json(const bench_options& o) const {
+  return {{"command", "bench"},
+          {"n", o.n},
+          {"block", o.block},
+          {"lookahead", o.lookahead},
+          {"type", o.type},
+          {"times", {{"factor", factor_median}, {"factor_runs", factor_seconds}}},
+          {"gflops", gflops},
+          {"gemm_gflops", gemm_gflops},
+          {"gemm_order", gemm_order},
+          {"ratio_to_gemm", gflops / gemm_gflops},
+          {"phases", phases_json(phases)}};
+}
+
+nlohmann::json read_bench_result::json(const read_bench_options& o) const {
+  return {{"command", "bench-read"},
+          {"file", o.path},
+          {"dataset", o.dataset},
+          {"bytes", bytes},
+          {"block", o.block},
+          {"times", {{"read", median}, {"read_runs", seconds}}},
+          {"gbytes_per_second", bytes / median * 1e-9}};
+}
+
+nlohmann::json demo_result::json(const demo_options& o) const {
+  return {{"command", "demo"},
+          {"n", o.n},
+          {"nrhs", o.nrhs},
+          {"block", o.block},
+          {"type", o.type},
+          {"times",
+           {{"generate", generate_seconds},
+            {"factor", factor_seconds},
+            {"solve", solve_seconds},
+            {"check", check_seconds}}},
+          {"gflops", gflops},
+          {"backward_error", worst_backward_error()},
+          {"backward_errors", backward_errors},
+          {"status", accepted() ? "solved" : "inaccurate"}};
+}
+
+}  // namespace gridlu::workflows
