@@ -10,7 +10,7 @@
 #include <vector>
 
 #include "gridlu/generate.hpp"
-#include "gridlu/kernels.hpp"
+#include "kernels/blas.hpp"
 
 namespace {
 
