@@ -38,10 +38,11 @@ struct state_summary {
 // sees the same answers.
 class directory {
 public:
-  // Creates the directory if needed and locks it for the life of the object: another run
-  // holding it is an output error naming the directory. Staging left by runs killed
+  enum class opening { create, existing };
+  // Locks the directory for the life of the object (creating it first if asked): another
+  // run holding it is an output error naming the directory. Staging left by runs killed
   // outright is removed.
-  directory(const process_grid& grid, std::string path);
+  directory(const process_grid& grid, std::string path, opening how = opening::create);
   ~directory();  // releases the lock
   directory(const directory&) = delete;
   directory& operator=(const directory&) = delete;

@@ -95,11 +95,13 @@ void check_state_fields(const state_summary& s, const std::string& path) {
 
 }  // namespace
 
-directory::directory(const process_grid& grid, std::string path)
+directory::directory(const process_grid& grid, std::string path, opening how)
     : grid_(grid), path_(std::move(path)) {
   comm::together(grid.all(), [&] {
     if (grid.rank() != 0) return;
     std::error_code ec;
+    if (how == opening::existing && !fs::is_directory(path_))
+      throw error(error_kind::input, "no checkpoint directory " + path_);
     fs::create_directories(path_, ec);
     if (ec || !fs::is_directory(path_))
       throw error(error_kind::usage, "cannot use " + path_ + " as checkpoint directory" +

@@ -349,7 +349,8 @@ void agree(const communicator& c, std::exception_ptr mine) {
       code = e.kind();
       message = e.what();
     } catch (const std::bad_alloc&) {
-      message = "out of memory";
+      code = error_kind::output;
+      message = "out of memory on rank " + std::to_string(c.rank());
     } catch (const std::exception& e) {
       message = e.what();
     } catch (...) {

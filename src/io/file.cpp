@@ -82,6 +82,31 @@ dataset_shape describe_dataset(hid_t dset) {
   return s;
 }
 
+std::string dims_text(const std::vector<index_t>& dims) {
+  if (dims.empty()) return "a scalar";
+  std::string t;
+  for (std::size_t k = 0; k < dims.size(); ++k) t += (k ? " x " : "") + std::to_string(dims[k]);
+  return t;
+}
+
+// A header can claim far more entries than the file holds (a crafted or damaged file):
+// refuse before allocating memory for them. Unfiltered, every entry takes its bytes in the
+// file; deflate, the filter HDF5 ships, compresses by about 1000:1 at most.
+void require_stored(hid_t dset, const dataset_shape& s, const std::string& what) {
+  const handle type(check(H5Dget_type(dset), "H5Dget_type"), H5Tclose);
+  const handle dcpl(check(H5Dget_create_plist(dset), "H5Dget_create_plist"), H5Pclose);
+  double bytes = static_cast<double>(H5Tget_size(type.get()));
+  for (const index_t d : s.dims) bytes *= static_cast<double>(d);
+  const double most = H5Pget_nfilters(dcpl.get()) > 0 ? 1100.0 : 1.0;
+  const double stored = static_cast<double>(H5Dget_storage_size(dset));
+  if (bytes > stored * most)
+    throw error(error_kind::input, what + " claims " + dims_text(s.dims) + " entries, " +
+                                       std::to_string(static_cast<long long>(bytes)) +
+                                       " bytes, but the file stores " +
+                                       std::to_string(static_cast<long long>(stored)) +
+                                       " (truncated or damaged file?)");
+}
+
 handle open_dataset(hid_t file, const std::string& name, const std::string& path) {
   if (H5Lexists(file, name.c_str(), H5P_DEFAULT) <= 0)
     throw error(error_kind::input, "no dataset " + quoted(name) + " in " + path);
@@ -232,6 +257,21 @@ struct file::handles {
 file::file(const process_grid& grid, const std::string& path, mode m)
     : grid_(&grid), path_(path), h_(std::make_unique<handles>()) {
   silence_hdf5();
+  const std::string damaged = path + " cannot be opened as HDF5 (truncated or damaged?)";
+  if (m == mode::read)
+    comm::together(grid.all(), [&] {
+      struct stat st {};
+      if (stat(path.c_str(), &st) != 0)
+        throw error(error_kind::input, "cannot open " + path + ": " + std::strerror(errno));
+      if (H5Fis_hdf5(path.c_str()) <= 0)
+        throw error(error_kind::input, path + " is not an HDF5 file");
+      // HDF5's collective open reads the file's metadata on rank 0 and broadcasts it; damage
+      // found there sends rank 0 out of the open while the others wait for the broadcast.
+      // Rank 0 opens the file alone first, and all agree before the collective open.
+      if (grid.rank() == 0)
+        const handle alone(check(H5Fopen(path.c_str(), H5F_ACC_RDONLY, H5P_DEFAULT), damaged),
+                           H5Fclose);
+    });
   comm::together(grid.all(), [&] {
     handle fapl(check(H5Pcreate(H5P_FILE_ACCESS), "H5Pcreate", error_kind::internal), H5Pclose);
     check(H5Pset_fapl_mpio(fapl.get(), grid.all().get(), MPI_INFO_NULL), "H5Pset_fapl_mpio",
@@ -241,14 +281,8 @@ file::file(const process_grid& grid, const std::string& path, mode m)
       h_->file = handle(check(id, "cannot create " + path, error_kind::output), H5Fclose);
       return;
     }
-    struct stat st {};
-    if (stat(path.c_str(), &st) != 0)
-      throw error(error_kind::input, "cannot open " + path + ": " + std::strerror(errno));
-    if (H5Fis_hdf5(path.c_str()) <= 0)
-      throw error(error_kind::input, path + " is not an HDF5 file");
     const hid_t id = H5Fopen(path.c_str(), H5F_ACC_RDONLY, fapl.get());
-    h_->file =
-        handle(check(id, path + " cannot be opened as HDF5 (truncated or damaged?)"), H5Fclose);
+    h_->file = handle(check(id, damaged), H5Fclose);
   });
 }
 
@@ -280,9 +314,15 @@ void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) con
   const bool fits = s.dims.size() == 2
                         ? s.dims[0] == file_rows && s.dims[1] == plan.file_cols
                         : s.dims.size() == 1 && s.dims[0] == file_rows && plan.file_cols == 1;
-  if (!fits || !s.usable || (s.is_complex && !scalar_traits<T>::is_complex))
-    throw error(error_kind::internal, "read: " + name + " does not fit the matrix");
   const std::string what = quoted(name) + " from " + path_;
+  // Callers check the inputs' shapes first, but datasets of other files (saved factors,
+  // checkpoints) reach here as the file has them: a misfit is the file's, not gridlu's.
+  if (!fits || !s.usable || (s.is_complex && !scalar_traits<T>::is_complex))
+    throw error(error_kind::input, quoted(name) + " in " + path_ + " is " + dims_text(s.dims) +
+                                       " " + s.type + "; expected " +
+                                       dims_text({file_rows, plan.file_cols}) + " " +
+                                       std::string(scalar_traits<T>::name) +
+                                       (scalar_traits<T>::is_complex ? " (or real)" : ""));
   const int me = grid_->rank();
   const index_t mine_across = plan.across.local_extent(plan.my_across());
   const handle type(H5Dget_type(dset.get()), H5Tclose);
@@ -455,6 +495,7 @@ std::vector<index_t> file::read_indices(const std::string& name) const {
     if (s.dims.size() != 1 || s.type.rfind("int", 0) != 0)
       throw error(error_kind::input,
                   quoted(name) + " in " + path_ + " is not a 1-D integer dataset");
+    require_stored(dset.get(), s, quoted(name) + " in " + path_);
     values.resize(static_cast<std::size_t>(s.dims[0]));
     check(H5Dread(dset.get(), H5T_NATIVE_INT64, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()),
           "cannot read " + quoted(name) + " from " + path_);
@@ -519,6 +560,7 @@ std::optional<attribute> read_attribute(hid_t obj, const std::string& key) {
       }
       break;
     case H5T_FLOAT: {
+      if (points < 1) break;  // an empty attribute (null dataspace) holds no number
       std::vector<double> v(static_cast<std::size_t>(points));
       check(H5Aread(attr.get(), H5T_NATIVE_DOUBLE, v.data()), "H5Aread");
       if (scalar) return v.at(0);

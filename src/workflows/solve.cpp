@@ -492,8 +492,11 @@ private:
   // X is safely written: the job is complete and its working state can go.
   void finish() {
     if (!ck_) return;
-    ck_->dir.record_completion(nlohmann::json{{"job_id", j_.id}, {"output", j_.output}}.dump(2) +
-                               "\n");
+    const auto& d = ck_->done;
+    const nlohmann::json marker = {{"job_id", j_.id},        {"output", j_.output},
+                                   {"columns_done", j_.n},   {"elapsed_seconds", d.elapsed_seconds},
+                                   {"restarts", d.restarts}, {"checkpoints", d.checkpoints}};
+    ck_->dir.record_completion(marker.dump(2) + "\n");
     ck_->dir.remove_state();
     r_.state_removed = true;
   }
@@ -631,7 +634,9 @@ solve_result finish_again(const process_grid& grid, job j, const run_settings& r
   check_paths(grid, j, run.report);
   const inputs in = open_inputs(grid, j);
   auto r = run_job(grid, j, run, in, nullptr);
-  dir.record_completion(nlohmann::json{{"job_id", j.id}, {"output", j.output}}.dump(2) + "\n");
+  auto marker = nlohmann::json::parse(dir.completion());
+  marker["output"] = j.output;
+  dir.record_completion(marker.dump(2) + "\n");
   return r;
 }
 
@@ -664,7 +669,7 @@ solve_result solve_file(const process_grid& grid, const solve_options& o, const 
   }
   // Signals count from the start: one during the reading stops at the first step.
   const stop_requests stops;
-  const checkpoint::directory dir(grid, j.checkpoint_dir);
+  const checkpoint::directory dir(grid, j.checkpoint_dir, checkpoint::directory::opening::create);
   claim_directory(dir, j, run);
   return run_checkpointed(grid, j, run, dir, false);
 }
@@ -673,7 +678,7 @@ solve_result resume_dir(const process_grid& grid, const resume_options& ro,
                         const run_settings& run) {
   if (ro.block != 0) require_block(ro.block);  // 0: the job's own
   const stop_requests stops;
-  const checkpoint::directory dir(grid, absolute(ro.dir));
+  const checkpoint::directory dir(grid, absolute(ro.dir), checkpoint::directory::opening::existing);
   job j = recorded_job(dir);
   if (ro.block > 0) j.block = ro.block;
   if (ro.lookahead >= 0) j.lookahead = ro.lookahead;

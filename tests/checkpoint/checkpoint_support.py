@@ -34,7 +34,8 @@ COND = 10.0
 EVERY = "0.0005"
 RANKS = 2
 STOPPED, NO_DATA = 5, 3
-PARTIAL_PREFIX = ".checkpoint.h5.partial-"
+# Every output is written inside a private staging directory beside its target.
+STAGING_PREFIX = ".gridlu-stage-"
 # Polling period of the directory watch and of job waits.
 POLL = 0.001
 # A resume on the same grid keeps the finished columns and does the rest with the same kind
@@ -73,7 +74,10 @@ class System:
         self.seconds = None
 
     def solve_args(self, out, *options):
-        return ["solve", self.path, "--out", out, "--block", BLOCK, *options]
+        """A solve that also saves its factors beside X (unless the options name a file): a
+        finished job keeps no working state, and the factors hold its pivots."""
+        keep = [] if "--save-factors" in options else ["--save-factors", factors_of(out)]
+        return ["solve", self.path, "--out", out, "--block", BLOCK, *keep, *options]
 
     def solve_uninterrupted(self, c):
         """Solve without checkpoints on RANKS ranks, keeping the factors for their pivots."""
@@ -90,9 +94,10 @@ class System:
         self.x_ref, self.pivots_ref = x, read_h5(factors, "pivots")
 
     def check_solved(self, c, directory, out, same_grid=True):
-        """After a resume that exited 0: X in `out` is the solution and the directory records
-        a finished solve whose pivots are those of the uninterrupted run; returns the final
-        checkpoint's summary."""
+        """After a resume that exited 0: X in `out` is the solution, the directory records the
+        job as finished and holds no working state, and the factors the job saved hold the
+        pivots of the uninterrupted run; returns the finished job's figures ("k", "elapsed",
+        "restarts") from its completion record."""
         c.require(out.exists(), f"no X at {out}")
         x = read_h5(out, "X")
         err = rel_diff(x, self.x_numpy)
@@ -105,20 +110,27 @@ class System:
         err = rel_diff(x, self.x_ref)
         c.check(err <= tol, f"||X - X_uninterrupted||_F / ||X_uninterrupted||_F = {err:.2e} > "
                             f"{tol:.0e}")
-        done = directory / "complete.json"
-        if c.check(done.exists(), "no complete.json after the solve finished"):
-            c.check(isinstance(json.loads(done.read_text()), dict),
-                    "complete.json does not hold a JSON object")
-        # A write cut short leaves its temporary file; the next run must clear it away.
-        c.check(not partials(directory), f"temporary files left: {partials(directory)}")
-        cp = sound_checkpoint(c, directory, self.a)
-        c.require(cp["k"] == N, f"final checkpoint has {cp['k']} of {N} columns done")
+        c.check(not partials(directory), f"staging left: {partials(directory)}")
+        c.check(not (directory / "checkpoint.h5").exists(),
+                "the working state is still there after X was written")
+        job = json.loads((directory / "job.json").read_text())
+        done = json.loads((directory / "complete.json").read_text())
+        c.require(isinstance(done, dict) and done.get("job_id") == job.get("job_id"),
+                  f"complete.json {done} does not belong to the job {job.get('job_id')}")
+        c.check(done.get("output") == str(out.resolve()),
+                f"complete.json names {done.get('output')}, X is {out}")
         # reference: the pivots of the uninterrupted run (partial pivoting chooses by value,
         # and the gaps between candidates in a random matrix dwarf rounding differences)
-        diff = np.flatnonzero(cp["pivots"] != self.pivots_ref)
+        pivots = read_h5(Path(job["save_factors"]), "pivots")
+        diff = np.flatnonzero(pivots != self.pivots_ref)
         c.check(diff.size == 0, f"pivots differ from the uninterrupted run's at {diff.size} steps,"
                                 f" the first at step {diff[:1]}")
-        return cp
+        return {"k": int(done.get("columns_done", -1)), "restarts": int(done.get("restarts", -1)),
+                "elapsed": float(done.get("elapsed_seconds", -1.0))}
+
+
+def factors_of(out):
+    return Path(out).with_suffix(".lu.h5")
 
 
 class Job:
@@ -225,9 +237,11 @@ class Job:
 
 
 def partials(directory):
-    """Names of the temporary files of checkpoint writes in `directory`."""
+    """Staging directories of checkpoint writes under way (or left by a kill) in `directory`:
+    those that hold a checkpoint.h5 being written."""
     try:
-        return [e.name for e in os.scandir(directory) if e.name.startswith(PARTIAL_PREFIX)]
+        return [e.name for e in os.scandir(directory) if e.name.startswith(STAGING_PREFIX)
+                and os.path.exists(os.path.join(e.path, "checkpoint.h5"))]
     except FileNotFoundError:
         return []
 

@@ -100,9 +100,15 @@ for description, moment in MOMENTS:
         c.require(reached, f"the run ended before the moment: {run.describe()}")
         if committed(ckpt) is None:
             outcomes["none"] += 1
-            # Nothing to resume from, whatever temporary file the kill left behind.
-            c.failed_with(suite.run("resume", ckpt, ranks=RANKS), NO_DATA)
-            c.check(not out.exists(), f"resume without a checkpoint wrote {out}")
+            if not (ckpt / "job.json").exists():
+                # Killed before the job was recorded: nothing names a job to continue.
+                c.failed_with(suite.run("resume", ckpt, ranks=RANKS), NO_DATA)
+                c.check(not out.exists(), f"resume without a job wrote {out}")
+                continue
+            # The job is recorded: resume starts it from column 0, whatever staging the
+            # kill left behind.
+            c.succeeded(suite.run("resume", ckpt, ranks=RANKS))
+            system.check_solved(c, ckpt, out)
             continue
         outcomes["checkpoint"] += 1
         problems, _ = inspect_checkpoint(ckpt / "checkpoint.h5", system.a)
