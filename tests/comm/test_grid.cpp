@@ -2,6 +2,7 @@
 // gather/scatter, checked against the block-cyclic definition.
 #include <gtest/gtest.h>
 
+#include "comm/collectives.hpp"
 #include "gridlu/generate.hpp"
 #include "gridlu/matrix.hpp"
 #include "support.hpp"
@@ -30,7 +31,7 @@ TEST(GridShape, ParsesPxQAndRefusesTheRest) {
       parse_grid_shape(bad);
       ADD_FAILURE() << "accepted '" << bad << "'";
     } catch (const error& e) {
-      EXPECT_EQ(e.code(), exit_code::usage) << bad;
+      EXPECT_EQ(e.kind(), error_kind::usage) << bad;
     }
   }
 }
@@ -53,7 +54,7 @@ TEST(ProcessGrid, ShapeNotMatchingTheRanksIsAUsageError) {
     process_grid grid(MPI_COMM_WORLD, {world_size() + 1, 1});
     ADD_FAILURE() << "accepted a grid larger than the world";
   } catch (const error& e) {
-    EXPECT_EQ(e.code(), exit_code::usage);
+    EXPECT_EQ(e.kind(), error_kind::usage);
     EXPECT_NE(std::string(e.what()).find("ranks"), std::string::npos);
   }
 }
@@ -79,17 +80,17 @@ TEST(Agreement, OneFailingRankMakesEveryRankThrowItsError) {
   const int last = world_size() - 1;
   try {
     comm::together(grid.all(), [&] {
-      if (world_rank() == last) throw error(exit_code::input, "rank-local failure");
+      if (world_rank() == last) throw error(error_kind::input, "rank-local failure");
     });
     ADD_FAILURE() << "no rank threw";
   } catch (const error& e) {
-    EXPECT_EQ(e.code(), exit_code::input);
+    EXPECT_EQ(e.kind(), error_kind::input);
     EXPECT_STREQ(e.what(), "rank-local failure");
   }
   // Several failures: the lowest failing rank's message wins; no failure: no throw.
   try {
     comm::together(grid.all(),
-                   [&] { throw error(exit_code::usage, "from " + std::to_string(world_rank())); });
+                   [&] { throw error(error_kind::usage, "from " + std::to_string(world_rank())); });
     ADD_FAILURE();
   } catch (const error& e) {
     EXPECT_STREQ(e.what(), "from 0");

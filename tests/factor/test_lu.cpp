@@ -7,7 +7,7 @@
 #include <numeric>
 
 #include "gridlu/generate.hpp"
-#include "gridlu/kernels.hpp"
+#include "kernels/blas.hpp"
 #include "gridlu/lu.hpp"
 #include "support.hpp"
 
