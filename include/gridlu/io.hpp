@@ -72,9 +72,6 @@ public:
     return std::nullopt;
   }
 
-  // Pushes everything written so far to storage (MPI_File_sync underneath).
-  void flush();
-
   // Closes the file, flushing everything; errors surface here rather than silently in
   // the destructor.
   void close();

@@ -10,11 +10,6 @@
 
 namespace gridlu::comm {
 
-template <class T>
-void send(const communicator& c, const T* data, index_t count, int dest);
-template <class T>
-void receive(const communicator& c, T* data, index_t count, int source);
-
 // Bitwise exclusive or of unsigned 64-bit words (order-independent checksums).
 void bit_xor(const communicator& c, std::uint64_t* data, index_t count);
 

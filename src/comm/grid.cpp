@@ -167,16 +167,6 @@ void broadcast(const communicator& c, std::string& text, int root) {
 }
 
 template <class T>
-void send(const communicator& c, const T* data, index_t count, int dest) {
-  check(MPI_Send(data, to_int(count), mpi_type<T>(), dest, 0, c.get()), "MPI_Send");
-}
-template <class T>
-void receive(const communicator& c, T* data, index_t count, int source) {
-  check(MPI_Recv(data, to_int(count), mpi_type<T>(), source, 0, c.get(), MPI_STATUS_IGNORE),
-        "MPI_Recv");
-}
-
-template <class T>
 void sum(const communicator& c, T* data, index_t count) {
   check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), MPI_SUM, c.get()),
         "MPI_Allreduce");
@@ -371,8 +361,6 @@ void agree(const communicator& c, std::exception_ptr mine) {
   X(float) X(double) X(std::complex<float>) X(std::complex<double>) X(std::int64_t) X(int)
 #define GRIDLU_COMM_INSTANTIATE(T)                                                                 \
   template void broadcast<T>(const communicator&, T*, index_t, int);                               \
-  template void send<T>(const communicator&, const T*, index_t, int);                              \
-  template void receive<T>(const communicator&, T*, index_t, int);                                 \
   template void all_to_all<T>(const communicator&, const T*, const std::vector<int>&, T*,          \
                               const std::vector<int>&);                                            \
   template void gather<T>(const communicator&, const T*, index_t, T*, const std::vector<index_t>&, \

@@ -398,12 +398,6 @@ std::uint64_t file::checksum(const std::string& name, bool transposed) const {
   return sum;
 }
 
-void file::flush() {
-  comm::together(grid_->all(), [&] {
-    check(H5Fflush(h_->file.get(), H5F_SCOPE_GLOBAL), "cannot flush " + path_, error_kind::output);
-  });
-}
-
 template <scalar T>
 void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dimensional) {
   const slab_plan plan = make_plan(*grid_, m, false);
