@@ -86,6 +86,11 @@ int world_rank();
 int world_size();
 // Ends every rank of the job at once with `code`: for failures the ranks cannot agree on.
 [[noreturn]] void abort_job(int code);
+// True on every rank if `mine` is true on any rank of the job.
+bool any_rank(bool mine);
+// Ends this rank with `code` without MPI_Finalize, output flushed: for a library that
+// cannot shut down cleanly, once every rank has agreed to end this way.
+[[noreturn]] void end_without_finalize(int code);
 // The MPI library's own description of itself (first line).
 std::string library_version();
 void barrier(const communicator& c);

@@ -105,6 +105,10 @@ std::optional<std::uint64_t> parse_checksum(const std::string& text);
 // "HDF5 1.10.8"
 std::string library_version();
 
+// True when a file could not be closed because its writes failed (a full disk): HDF5
+// cannot then shut down cleanly, and a program should end without MPI_Finalize.
+bool left_unclosed();
+
 // Everything in any HDF5 file, read on the calling rank alone (for `gridlu info`).
 struct description {
   struct item {

@@ -47,6 +47,10 @@ public:
   index_t local_rows() const { return local_rows_; }
   index_t local_cols() const { return local_cols_; }
   index_t ld() const { return ld_; }
+  // Bytes of the whole matrix, all ranks' parts together.
+  double bytes() const {
+    return static_cast<double>(rows()) * static_cast<double>(cols()) * sizeof(T);
+  }
 
   T* data() { return storage_.data(); }
   const T* data() const { return storage_.data(); }

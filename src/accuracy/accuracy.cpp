@@ -1,7 +1,7 @@
 #include "gridlu/accuracy.hpp"
 
-#include "kernels/blas.hpp"
 #include "instantiate.hpp"
+#include "kernels/blas.hpp"
 
 namespace gridlu {
 

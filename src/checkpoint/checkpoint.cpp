@@ -192,7 +192,7 @@ void directory::save(const dist_matrix<T>& work, const lu_result& state, const p
   const std::vector<index_t> pivots(state.pivots.begin(),
                                     state.pivots.begin() + state.columns_done);
   const std::uint64_t work_sum = content_checksum(work);
-  io::staged_output out(grid_, state_path(), io::existing::replace);
+  io::staged_output out(grid_, state_path(), io::existing::replace, work.bytes());
   {
     io::file f(grid_, out.path(), io::file::mode::create);
     f.write("work", work);

@@ -572,6 +572,7 @@ int main(int argc, char** argv) {
   } catch (const gridlu::error& e) {
     // Errors reaching here were agreed by all ranks (or raised by all alike).
     if (rank == 0) std::fprintf(stderr, "gridlu: error: %s\n", e.what());
+    if (comm::any_rank(io::left_unclosed())) comm::end_without_finalize(exit_code(e.kind()));
     return exit_code(e.kind());
   } catch (const std::exception& e) {
     std::fprintf(stderr, "gridlu: error: internal failure on rank %d: %s\n", rank, e.what());

@@ -6,6 +6,7 @@
 #include <climits>
 #include <complex>
 #include <cstdint>
+#include <cstdio>
 #include <cstdlib>
 #include <cstring>
 #include <new>
@@ -134,6 +135,17 @@ int world_size() {
   int size = 0;
   MPI_Comm_size(MPI_COMM_WORLD, &size);
   return size;
+}
+
+bool any_rank(bool mine) {
+  int v = mine ? 1 : 0;
+  check(MPI_Allreduce(MPI_IN_PLACE, &v, 1, MPI_INT, MPI_MAX, MPI_COMM_WORLD), "MPI_Allreduce");
+  return v != 0;
+}
+
+void end_without_finalize(int code) {
+  std::fflush(nullptr);
+  std::_Exit(code);
 }
 
 void abort_job(int code) {

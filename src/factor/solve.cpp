@@ -2,9 +2,9 @@
 #include <algorithm>
 
 #include "factor/interchange.hpp"
-#include "kernels/blas.hpp"
 #include "gridlu/lu.hpp"
 #include "instantiate.hpp"
+#include "kernels/blas.hpp"
 
 namespace gridlu {
 namespace {

@@ -286,14 +286,27 @@ file::file(const process_grid& grid, const std::string& path, mode m)
   });
 }
 
-file::~file() = default;
 file::file(file&&) noexcept = default;
 file& file::operator=(file&&) noexcept = default;
 
+namespace {
+// HDF5 1.10 keeps a file whose last writes failed half-closed, and crashes when it tries
+// again at MPI_Finalize; the command then ends without it (see left_unclosed).
+bool unclosed = false;
+}  // namespace
+
+bool left_unclosed() { return unclosed; }
+
+file::~file() {
+  if (h_ && h_->file.release() < 0) unclosed = true;
+}
+
 void file::close() {
   comm::together(grid_->all(), [&] {
-    if (h_->file.release() < 0)
+    if (h_->file.release() < 0) {
+      unclosed = true;
       throw error(error_kind::output, "cannot finish writing " + path_ + " (disk full?)");
+    }
   });
 }
 

@@ -5,6 +5,7 @@
 #include <unistd.h>
 
 #include <cerrno>
+#include <cmath>
 #include <cstdio>
 #include <cstring>
 #include <filesystem>
@@ -62,6 +63,22 @@ void move_into_place(const std::string& from, const std::string& target, existin
   unlink(from.c_str());
 }
 
+// Reserves `bytes` in a scratch file of the private directory and frees them again:
+// where the file system can reserve (fallocate), a write that would not fit fails here.
+void probe_space(const std::string& directory, const std::string& target, double bytes) {
+  const std::string scratch = (fs::path(directory) / "space").string();
+  const int fd = open(scratch.c_str(), O_CREAT | O_EXCL | O_WRONLY | O_CLOEXEC, 0600);
+  if (fd < 0) throw error(error_kind::output, "cannot write " + target + ": " + reason());
+  const bool reserved = fallocate(fd, 0, 0, static_cast<off_t>(bytes)) == 0;
+  const int why = errno;
+  close(fd);
+  unlink(scratch.c_str());
+  if (!reserved && why != EOPNOTSUPP && why != ENOSYS)
+    throw error(error_kind::output, "cannot write " + target + ": " +
+                                        std::to_string(std::llround(bytes / 1e6)) +
+                                        " MB do not fit (" + std::strerror(why) + ")");
+}
+
 void remove_staged(const std::string& directory, const std::string& path) noexcept {
   unlink(path.c_str());
   rmdir(directory.c_str());
@@ -83,10 +100,18 @@ void check_output_target(const std::string& target, existing policy) {
   rmdir(make_private_directory(target, error_kind::usage).c_str());
 }
 
-staged_output::staged_output(const process_grid& grid, std::string target, existing policy)
+staged_output::staged_output(const process_grid& grid, std::string target, existing policy,
+                             double bytes)
     : grid_(grid), target_(std::move(target)), policy_(policy) {
   comm::together(grid.all(), [&] {
-    if (grid.rank() == 0) directory_ = make_private_directory(target_, error_kind::output);
+    if (grid.rank() != 0) return;
+    directory_ = make_private_directory(target_, error_kind::output);
+    try {
+      if (bytes > 0) probe_space(directory_, target_, bytes);
+    } catch (...) {
+      rmdir(directory_.c_str());
+      throw;
+    }
   });
   comm::broadcast(grid.all(), directory_, 0);
   path_ = (fs::path(directory_) / fs::path(target_).filename()).string();

@@ -26,8 +26,10 @@ void check_output_target(const std::string& target, existing policy);
 // A file of any size written by every rank of a grid (HDF5 through MPI-IO).
 class staged_output {
 public:
-  // Collective: rank 0 creates the private directory, all ranks learn its name.
-  staged_output(const process_grid& grid, std::string target, existing policy);
+  // Collective: rank 0 creates the private directory, all ranks learn its name. With
+  // `bytes`, the space for them is reserved there and released at once, so a full disk
+  // or a file-size limit is an output error before anything is written.
+  staged_output(const process_grid& grid, std::string target, existing policy, double bytes = 0);
   ~staged_output();  // removes what was staged unless committed
   staged_output(const staged_output&) = delete;
   staged_output& operator=(const staged_output&) = delete;

@@ -147,7 +147,7 @@ void generate_file(const process_grid& grid, const generate_options& o) {
     dist_matrix<T> a(grid, o.n, o.n, default_block), b(grid, o.n, o.nrhs, default_block);
     a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
     b.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); });
-    io::staged_output out(grid, o.output, policy);
+    io::staged_output out(grid, o.output, policy, a.bytes() + b.bytes());
     {
       io::file f(grid, out.path(), io::file::mode::create);
       f.write("A", a);

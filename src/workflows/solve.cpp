@@ -244,7 +244,7 @@ template <scalar T>
 void write_factors(const process_grid& grid, const job& j, const dist_matrix<T>& lu,
                    const std::vector<index_t>& pivots) {
   io::staged_output out(grid, j.save_factors,
-                        j.force ? io::existing::replace : io::existing::refuse);
+                        j.force ? io::existing::replace : io::existing::refuse, lu.bytes());
   {
     io::file f(grid, out.path(), io::file::mode::create);
     f.write("LU", lu);
@@ -465,8 +465,8 @@ private:
   }
 
   void write_solution(const dist_matrix<T>& x) {
-    io::staged_output out(grid_, j_.output,
-                          j_.force ? io::existing::replace : io::existing::refuse);
+    io::staged_output out(grid_, j_.output, j_.force ? io::existing::replace : io::existing::refuse,
+                          x.bytes() + 8.0 * static_cast<double>(j_.nrhs));
     {
       io::file f(grid_, out.path(), io::file::mode::create);
       f.write("X", x, in_.rhs_1d());
