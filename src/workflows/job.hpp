@@ -72,7 +72,7 @@ void write_attributes(io::file& f, const std::string& object, const job& j);
 // A new random job identity (32 hex digits from the kernel's random source).
 std::string new_job_id();
 
-// The same work asked for: inputs, their fingerprints by size and time, and outputs.
+// The same work asked for: the same inputs read the same way, the same X.
 bool same_work(const job& a, const job& b);
 
 }  // namespace gridlu::workflows

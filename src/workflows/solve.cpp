@@ -574,11 +574,10 @@ checkpoint::progress progress_of(const checkpoint::directory& dir, const job& j)
   return s.done;
 }
 
-// Runs a job whose directory is held: records the job first, so that a kill at any
-// later moment leaves something `resume` can continue.
+// Runs a job whose directory is held: records the job as soon as its inputs' headers
+// are read, so that a kill at any later moment leaves something `resume` can continue.
 solve_result run_checkpointed(const process_grid& grid, job& j, const run_settings& run,
                               const checkpoint::directory& dir, bool resumed) {
-  dir.record_job(to_json(j).dump(2) + "\n");
   checkpointing ck{dir, progress_of(dir, j)};
   if (resumed) ++ck.done.restarts;
   const job recorded = j;
@@ -586,6 +585,7 @@ solve_result run_checkpointed(const process_grid& grid, job& j, const run_settin
   if (resumed && (j.n != recorded.n || j.type != recorded.type))
     throw error(error_kind::input, j.matrix_dataset + " in " + j.input +
                                        " is no longer the matrix of the job in " + dir.path());
+  dir.record_job(to_json(j).dump(2) + "\n");
   dir.require_space(static_cast<double>(j.n) * static_cast<double>(j.n) * element_bytes(j.type));
   auto r = run_job(grid, j, run, in, &ck);
   r.restarts = ck.done.restarts;
