@@ -107,7 +107,7 @@ directory::directory(const process_grid& grid, std::string path, opening how)
       throw error(error_kind::usage, "cannot use " + path_ + " as checkpoint directory" +
                                          (ec ? ": " + ec.message() : ": not a directory"));
     lock_fd_ = take_lock(path_);
-    io::remove_stale_staging(path_);
+    io::remove_stale_staging(path_);  // never throws: the lock cannot leak
   });
 }
 

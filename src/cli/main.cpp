@@ -219,6 +219,62 @@ int report_solve(const process_grid& grid, const workflows::solve_result& r,
   return code;
 }
 
+int run_read_bench(const common_options& c, const workflows::read_bench_options& o) {
+  const auto grid = make_grid(c);
+  const auto r = workflows::bench_read(grid, o);
+  if (grid.rank() != 0) return 0;
+  std::printf("gridlu bench --read: %s:%s (%.2f GB) into a %dx%d grid, block %lld\n",
+              o.path.c_str(), o.dataset.c_str(), r.bytes * 1e-9, grid.prows(), grid.pcols(),
+              static_cast<long long>(o.block));
+  for (const double t : r.seconds)
+    std::printf("  read %8.3f s   %6.2f GB/s\n", t, r.bytes / t * 1e-9);
+  std::printf("  median %6.3f s   %6.2f GB/s\n", r.median, r.bytes / r.median * 1e-9);
+  write_report(grid, c.report, r.json(o));
+  return 0;
+}
+
+int run_bench(const common_options& c, const workflows::bench_options& o) {
+  const auto grid = make_grid(c);
+  const auto r = workflows::bench(grid, o);
+  if (grid.rank() != 0) return 0;
+  std::printf(
+      "gridlu bench: LU of a random %s matrix, n = %lld, block %lld, look-ahead %d, grid %dx%d\n",
+      o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.block), o.lookahead,
+      grid.prows(), grid.pcols());
+  std::printf("  factor time   %10.3f s   (median of %zu)\n", r.factor_median,
+              r.factor_seconds.size());
+  std::printf("  factor rate   %10.2f GFLOP/s\n", r.gflops);
+  std::printf("  GEMM rate     %10.2f GFLOP/s   (order %lld on all %d ranks at once)\n",
+              r.gemm_gflops, static_cast<long long>(r.gemm_order), grid.size());
+  std::printf("  LU / GEMM     %10.3f\n", r.gflops / r.gemm_gflops);
+  print_phases(r.phases);
+  write_report(grid, c.report, r.json(o));
+  return 0;
+}
+
+int run_demo(const common_options& c, const workflows::demo_options& o) {
+  const auto grid = make_grid(c);
+  const auto r = workflows::demo(grid, o);
+  const int code = r.first_zero_pivot >= 0 ? exit_code(error_kind::singular) : 0;
+  if (grid.rank() != 0) return code;
+  std::printf("gridlu demo: random %s system, n = %lld, %lld right-hand side(s)\n", o.type.c_str(),
+              static_cast<long long>(o.n), static_cast<long long>(o.nrhs));
+  std::printf("  grid %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(), grid.size(),
+              static_cast<long long>(o.block));
+  std::printf("  generate  %9.3f s\n  factor    %9.3f s   %.2f GFLOP/s\n", r.generate_seconds,
+              r.factor_seconds, r.gflops);
+  std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds, r.check_seconds);
+  if (r.first_zero_pivot >= 0)
+    std::printf("  exactly zero pivot in column %lld (0-based, as everywhere in gridlu)\n",
+                static_cast<long long>(r.first_zero_pivot));
+  std::printf("  backward error, worst of %zu: %.2e (accepted up to 10 n eps = %.2e): %s\n",
+              r.backward_errors.size(), r.worst_backward_error(), r.threshold,
+              r.accepted() ? "GOOD" : "POOR");
+  std::fflush(stdout);
+  write_report(grid, c.report, r.json(o));
+  return code;
+}
+
 // Each subcommand: its options, bound to values that live as long as the program, and
 // what runs when it is chosen.
 struct subcommand {
@@ -251,37 +307,10 @@ subcommand add_bench(CLI::App& app, double) {
       "Examples:\n  mpiexec -n 2 gridlu bench --n 8192 --grid 1x2 --repeat 3\n"
       "  mpiexec -n 2 gridlu bench --read system.h5 --repeat 3");
   return {cmd, [=] {
-            const auto grid = make_grid(*c);
-            if (!read->path.empty()) {
-              read->block = o->block;
-              read->repeat = o->repeat;
-              const auto r = workflows::bench_read(grid, *read);
-              if (grid.rank() != 0) return 0;
-              std::printf("gridlu bench --read: %s:%s (%.2f GB) into a %dx%d grid, block %lld\n",
-                          read->path.c_str(), read->dataset.c_str(), r.bytes * 1e-9, grid.prows(),
-                          grid.pcols(), static_cast<long long>(read->block));
-              for (const double t : r.seconds)
-                std::printf("  read %8.3f s   %6.2f GB/s\n", t, r.bytes / t * 1e-9);
-              std::printf("  median %6.3f s   %6.2f GB/s\n", r.median, r.bytes / r.median * 1e-9);
-              write_report(grid, c->report, r.json(*read));
-              return 0;
-            }
-            const auto r = workflows::bench(grid, *o);
-            if (grid.rank() != 0) return 0;
-            std::printf(
-                "gridlu bench: LU of a random %s matrix, n = %lld, block %lld, look-ahead %d, "
-                "grid %dx%d\n",
-                o->type.c_str(), static_cast<long long>(o->n), static_cast<long long>(o->block),
-                o->lookahead, grid.prows(), grid.pcols());
-            std::printf("  factor time   %10.3f s   (median of %zu)\n", r.factor_median,
-                        r.factor_seconds.size());
-            std::printf("  factor rate   %10.2f GFLOP/s\n", r.gflops);
-            std::printf("  GEMM rate     %10.2f GFLOP/s   (order %lld on all %d ranks at once)\n",
-                        r.gemm_gflops, static_cast<long long>(r.gemm_order), grid.size());
-            std::printf("  LU / GEMM     %10.3f\n", r.gflops / r.gemm_gflops);
-            print_phases(r.phases);
-            write_report(grid, c->report, r.json(*o));
-            return 0;
+            if (read->path.empty()) return run_bench(*c, *o);
+            read->block = o->block;
+            read->repeat = o->repeat;
+            return run_read_bench(*c, *read);
           }};
 }
 
@@ -300,31 +329,7 @@ subcommand add_demo(CLI::App& app, double) {
   add_common(cmd, *c);
   cmd->footer("Example:\n  mpiexec -n 2 gridlu demo --n 3000 --rhs 4\n\n" +
               std::string(exit_codes_help));
-  return {
-      cmd, [=] {
-        const auto grid = make_grid(*c);
-        const auto r = workflows::demo(grid, *o);
-        if (grid.rank() == 0) {
-          std::printf("gridlu demo: random %s system, n = %lld, %lld right-hand side(s)\n",
-                      o->type.c_str(), static_cast<long long>(o->n),
-                      static_cast<long long>(o->nrhs));
-          std::printf("  grid %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
-                      grid.size(), static_cast<long long>(o->block));
-          std::printf("  generate  %9.3f s\n  factor    %9.3f s   %.2f GFLOP/s\n",
-                      r.generate_seconds, r.factor_seconds, r.gflops);
-          std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds,
-                      r.check_seconds);
-          if (r.first_zero_pivot >= 0)
-            std::printf("  exactly zero pivot in column %lld (0-based, as everywhere in gridlu)\n",
-                        static_cast<long long>(r.first_zero_pivot));
-          std::printf("  backward error, worst of %zu: %.2e (accepted up to 10 n eps = %.2e): %s\n",
-                      r.backward_errors.size(), r.worst_backward_error(), r.threshold,
-                      r.accepted() ? "GOOD" : "POOR");
-          std::fflush(stdout);
-          write_report(grid, c->report, r.json(*o));
-        }
-        return r.first_zero_pivot >= 0 ? exit_code(error_kind::singular) : 0;
-      }};
+  return {cmd, [=] { return run_demo(*c, *o); }};
 }
 
 subcommand add_solve(CLI::App& app, double started) {

@@ -180,6 +180,11 @@ struct slab_plan {
 
 template <scalar T>
 slab_plan make_plan(const process_grid& grid, const dist_matrix<T>& m, bool transposed) {
+  // The slabs move between the file's ranks and the matrix's owners: one grid for both.
+  if (&m.grid() != &grid)
+    throw error(error_kind::internal,
+                "a matrix is read or written through a file opened on "
+                "another process grid");
   const auto& rows = m.layout().rows;
   const auto& cols = m.layout().cols;
   return transposed ? slab_plan{grid, cols, rows, true, m.rows()}

@@ -162,10 +162,12 @@ void write_whole_file(const std::string& target, const std::string& content, exi
   }
 }
 
-void remove_stale_staging(const std::string& directory) {
+void remove_stale_staging(const std::string& directory) noexcept {
   std::error_code ec;
-  for (const auto& e : fs::directory_iterator(directory, ec))
-    if (e.path().filename().string().rfind(staging_prefix, 0) == 0) fs::remove_all(e.path(), ec);
+  for (auto it = fs::directory_iterator(directory, ec); !ec && it != fs::directory_iterator();
+       it.increment(ec))
+    if (it->path().filename().string().rfind(staging_prefix, 0) == 0)
+      fs::remove_all(it->path(), ec);
 }
 
 }  // namespace gridlu::io

@@ -54,6 +54,6 @@ void write_whole_file(const std::string& target, const std::string& content, exi
 
 // Removes staging directories left in `directory` by runs killed outright. Only safe
 // where no other run can be writing, such as a locked checkpoint directory.
-void remove_stale_staging(const std::string& directory);
+void remove_stale_staging(const std::string& directory) noexcept;
 
 }  // namespace gridlu::io
