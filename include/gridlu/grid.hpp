@@ -86,6 +86,8 @@ int world_rank();
 int world_size();
 // Ends every rank of the job at once with `code`: for failures the ranks cannot agree on.
 [[noreturn]] void abort_job(int code);
+// How many ranks of c share this rank's node (and so its memory). Collective.
+int ranks_on_node(const communicator& c);
 // True on every rank if `mine` is true on any rank of the job.
 bool any_rank(bool mine);
 // Ends this rank with `code` without MPI_Finalize, output flushed: for a library that

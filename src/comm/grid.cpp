@@ -137,6 +137,13 @@ int world_size() {
   return size;
 }
 
+int ranks_on_node(const communicator& c) {
+  MPI_Comm node = MPI_COMM_NULL;
+  check(MPI_Comm_split_type(c.get(), MPI_COMM_TYPE_SHARED, 0, MPI_INFO_NULL, &node),
+        "MPI_Comm_split_type");
+  return communicator(node).size();
+}
+
 bool any_rank(bool mine) {
   int v = mine ? 1 : 0;
   check(MPI_Allreduce(MPI_IN_PLACE, &v, 1, MPI_INT, MPI_MAX, MPI_COMM_WORLD), "MPI_Allreduce");

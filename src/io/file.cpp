@@ -282,6 +282,10 @@ file::file(const process_grid& grid, const std::string& path, mode m)
     check(H5Pset_fapl_mpio(fapl.get(), grid.all().get(), MPI_INFO_NULL), "H5Pset_fapl_mpio",
           error_kind::internal);
     if (m == mode::create) {
+      // The 1.8 file format and later: object headers carry checksums, so a damaged file
+      // of gridlu's is told apart instead of being parsed as it is.
+      check(H5Pset_libver_bounds(fapl.get(), H5F_LIBVER_V18, H5F_LIBVER_LATEST),
+            "H5Pset_libver_bounds", error_kind::internal);
       const hid_t id = H5Fcreate(path.c_str(), H5F_ACC_TRUNC, H5P_DEFAULT, fapl.get());
       h_->file = handle(check(id, "cannot create " + path, error_kind::output), H5Fclose);
       return;
@@ -538,12 +542,15 @@ void file::set_attribute(const std::string& object, const std::string& key,
       space = handle(check(H5Screate_simple(1, &n, nullptr), "H5Screate_simple"), H5Sclose);
       data = v->data();
     } else {
-      // Variable-length UTF-8, which h5py reads back as str.
+      // Fixed-length UTF-8 (h5py reads it as bytes): a variable-length string lives in a
+      // global heap without checksums, whose damage can make HDF5 1.10 loop for ever.
+      const auto& str = std::get<std::string>(value);
       type = h5::owned_type(H5Tcopy(H5T_C_S1), "H5Tcopy");
-      H5Tset_size(type.get(), H5T_VARIABLE);
+      H5Tset_size(type.get(), std::max<std::size_t>(str.size(), 1));
+      H5Tset_strpad(type.get(), H5T_STR_NULLPAD);
       H5Tset_cset(type.get(), H5T_CSET_UTF8);
-      text = std::get<std::string>(value).c_str();
-      data = &text;
+      text = str.c_str();
+      data = text;
     }
     const handle attr(
         check(H5Acreate2(obj.get(), key.c_str(), type.get(), space.get(), H5P_DEFAULT, H5P_DEFAULT),

@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
+#include <fstream>
 #include <optional>
 #include <utility>
 
@@ -511,8 +512,47 @@ private:
   solve_result r_;
 };
 
+// Bytes this process may still take: what the kernel reports available, within the
+// control group's limit where one is set.
+double available_memory() {
+  double available = 0;
+  std::ifstream meminfo("/proc/meminfo");
+  for (std::string key; meminfo >> key;) {
+    double kb = 0;
+    meminfo >> kb;
+    if (key == "MemAvailable:") available = kb * 1024;
+    meminfo.ignore(64, '\n');
+  }
+  std::ifstream max("/sys/fs/cgroup/memory.max"), current("/sys/fs/cgroup/memory.current");
+  double limit = 0, used = 0;
+  if (max >> limit && current >> used) available = std::min(available, limit - used);
+  return available;
+}
+
+// Refuses, on every rank together, a job whose matrices cannot fit: a size read from a
+// file must end in a clear word, not in an allocation failure half-way.
+void require_memory(const process_grid& grid, const job& j) {
+  const int sharing = comm::ranks_on_node(grid.all());
+  const double n = static_cast<double>(j.n), entry = element_bytes(j.type);
+  // A, B and X shared out, and per rank the panels in flight and the I/O slabs.
+  const double need =
+      entry * ((n * n + 3.0 * n * static_cast<double>(j.nrhs)) / grid.size() +
+               static_cast<double>(j.lookahead + 4) * n * static_cast<double>(j.block));
+  comm::together(grid.all(), [&] {
+    const double share = available_memory() / sharing;
+    if (need > share)
+      throw error(error_kind::output,
+                  "not enough memory for a " + j.type + " system of order " + std::to_string(j.n) +
+                      ": about " + std::to_string(std::llround(need / 1e6)) +
+                      " MB per rank needed, " + std::to_string(std::llround(share / 1e6)) +
+                      " MB available to each of the " + std::to_string(sharing) +
+                      " rank(s) on this node");
+  });
+}
+
 solve_result run_job(const process_grid& grid, job& j, const run_settings& run, const inputs& in,
                      checkpointing* ck) {
+  require_memory(grid, j);
   solve_result result;
   dispatch_scalar(j.type, [&]<class T>(T) { result = job_run<T>(grid, j, run, in, ck)(); });
   return result;
