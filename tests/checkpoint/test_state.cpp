@@ -35,41 +35,6 @@ template <class T>
 class State : public ::testing::Test {};
 TYPED_TEST_SUITE(State, scalar_types);
 
-int world_size() {
-  int n = 0;
-  MPI_Comm_size(MPI_COMM_WORLD, &n);
-  return n;
-}
-
-// A fresh directory for one test: rank 0 makes it, every rank learns its name, and rank
-// 0 removes it once every rank is done with it. The checkpoint directory proper is a
-// subdirectory that does not exist yet, which `directory` must create.
-class scratch_dir {
-public:
-  scratch_dir() : world_(MPI_COMM_WORLD, {1, world_size()}) {
-    if (world_.rank() == 0) {
-      std::string pattern = (fs::temp_directory_path() / "gridlu-test-state-XXXXXX").string();
-      root_ = mkdtemp(pattern.data()) ? pattern : "";
-    }
-    comm::broadcast(world_.all(), root_, 0);
-    EXPECT_FALSE(root_.empty()) << "mkdtemp failed";
-  }
-  ~scratch_dir() {
-    comm::barrier(world_.all());
-    std::error_code ec;
-    if (world_.rank() == 0) fs::remove_all(root_, ec);
-  }
-  std::string checkpoints(const std::string& name = "checkpoints") const {
-    return (fs::path(root_) / name).string();
-  }
-  std::string root() const { return root_; }
-  const process_grid& world() const { return world_; }
-
-private:
-  process_grid world_;
-  std::string root_;
-};
-
 // What LAPACK's ?getrf (OpenBLAS) makes of a column-major n x n matrix: factors, and
 // pivots counted from 0 like gridlu's.
 template <class T>
@@ -150,7 +115,7 @@ TYPED_TEST(State, StoppedSavedLoadedOnAnotherGridAndFinishedMatchesLapack) {
   int case_number = 0;
   for (std::size_t s = 0; s < shapes.size(); ++s)
     for (const auto& [nb1, nb2] : {std::pair<index_t, index_t>{8, 5}, {5, 16}}) {
-      const std::string path = dir.checkpoints("case-" + std::to_string(case_number++));
+      const std::string path = dir.file("case-" + std::to_string(case_number++));
       const process_grid first_grid(MPI_COMM_WORLD, shapes[s]);
       const process_grid second_grid(MPI_COMM_WORLD, shapes[(s + 1) % shapes.size()]);
       SCOPED_TRACE(label(shapes[s], nb1, shapes[(s + 1) % shapes.size()], nb2));
@@ -236,10 +201,10 @@ TYPED_TEST(State, TheFirstAndLastStatesRoundTrip) {
   const auto original = a.gather();
   const auto untouched_sum = content_checksum(a);
 
-  checkpoint::directory(first_grid, dir.checkpoints())
+  checkpoint::directory(first_grid, dir.file("checkpoints"))
       .save(a, lu_result{}, checkpoint::progress{}, "untouched");
   {
-    const checkpoint::directory d(second_grid, dir.checkpoints());
+    const checkpoint::directory d(second_grid, dir.file("checkpoints"));
     EXPECT_EQ(d.summary().done.columns_done, 0);
     dist_matrix<T> b(second_grid, n, n, 7);
     auto start = d.load(b);
@@ -257,9 +222,9 @@ TYPED_TEST(State, TheFirstAndLastStatesRoundTrip) {
 
   const auto complete = factor(a);
   const auto complete_sum = content_checksum(a);
-  checkpoint::directory(first_grid, dir.checkpoints())
+  checkpoint::directory(first_grid, dir.file("checkpoints"))
       .save(a, complete, checkpoint::progress{n, 1, 0, 1}, "complete");
-  const checkpoint::directory d(second_grid, dir.checkpoints());
+  const checkpoint::directory d(second_grid, dir.file("checkpoints"));
   EXPECT_EQ(d.summary().job_id, "complete");
   EXPECT_EQ(d.summary().done.columns_done, n);
   dist_matrix<T> c(second_grid, n, n, 3);
@@ -287,10 +252,10 @@ TYPED_TEST(State, AZeroPivotBeforeTheStopSurvivesTheCheckpoint) {
   const auto original = a.gather();
   const auto stopped = factor_until(a, 10);
   EXPECT_EQ(stopped.first_zero_pivot, 1);
-  checkpoint::directory(first_grid, dir.checkpoints())
+  checkpoint::directory(first_grid, dir.file("checkpoints"))
       .save(a, stopped, checkpoint::progress{stopped.columns_done}, "zero");
 
-  const checkpoint::directory d(second_grid, dir.checkpoints());
+  const checkpoint::directory d(second_grid, dir.file("checkpoints"));
   dist_matrix<T> b(second_grid, n, n, 6);
   auto loaded = d.load(b);
   EXPECT_EQ(loaded.first_zero_pivot, 1);
@@ -310,9 +275,9 @@ TYPED_TEST(State, AZeroPivotBeforeTheStopSurvivesTheCheckpoint) {
 TEST(Directory, RecordsRemovalAndClearing) {
   const scratch_dir dir;
   const process_grid grid(MPI_COMM_WORLD, shapes_for_world().back());
-  const checkpoint::directory d(grid, dir.checkpoints());
-  EXPECT_EQ(d.path(), dir.checkpoints());
-  EXPECT_EQ(fs::path(d.state_path()).parent_path(), fs::path(dir.checkpoints()));
+  const checkpoint::directory d(grid, dir.file("checkpoints"));
+  EXPECT_EQ(d.path(), dir.file("checkpoints"));
+  EXPECT_EQ(fs::path(d.state_path()).parent_path(), fs::path(dir.file("checkpoints")));
   EXPECT_FALSE(d.has_state());
   EXPECT_EQ(d.job(), "");
   EXPECT_EQ(d.completion(), "");
@@ -335,7 +300,7 @@ TEST(Directory, RecordsRemovalAndClearing) {
   if (is_root()) {
     state_file_exists = fs::exists(d.state_path());
     const std::set<std::string> documented = {"lock", "job.json", "checkpoint.h5", "complete.json"};
-    for (const auto& e : fs::directory_iterator(dir.checkpoints()))
+    for (const auto& e : fs::directory_iterator(dir.file("checkpoints")))
       if (!documented.count(e.path().filename().string()))
         unexpected.push_back(e.path().filename().string());
     EXPECT_TRUE(state_file_exists);
@@ -368,29 +333,29 @@ TEST(Directory, ASecondUserOfTheSamePathIsRefusedWhileTheFirstLives) {
   const scratch_dir dir;
   const process_grid grid(MPI_COMM_WORLD, shapes_for_world().front());
   {
-    const checkpoint::directory first(grid, dir.checkpoints());
+    const checkpoint::directory first(grid, dir.file("checkpoints"));
     first.record_job("{}");
     try {
-      const checkpoint::directory second(grid, dir.checkpoints());
+      const checkpoint::directory second(grid, dir.file("checkpoints"));
       ADD_FAILURE() << "a second directory on a locked path was accepted";
     } catch (const gridlu::error& e) {
       EXPECT_EQ(static_cast<int>(e.kind()), static_cast<int>(error_kind::output)) << e.what();
-      EXPECT_NE(std::string(e.what()).find(dir.checkpoints()), std::string::npos)
+      EXPECT_NE(std::string(e.what()).find(dir.file("checkpoints")), std::string::npos)
           << "the error does not name the directory: " << e.what();
     }
     // The refusal took nothing from the first: its files, and its lock, which this test
     // cannot take either through a descriptor of its own.
     EXPECT_EQ(first.job(), "{}");
     if (is_root()) {
-      EXPECT_TRUE(fs::exists(fs::path(dir.checkpoints()) / "lock"));
-      EXPECT_FALSE(can_lock(fs::path(dir.checkpoints()) / "lock"));
+      EXPECT_TRUE(fs::exists(fs::path(dir.file("checkpoints")) / "lock"));
+      EXPECT_FALSE(can_lock(fs::path(dir.file("checkpoints")) / "lock"));
     }
   }
   // Released with the object.
   if (is_root()) {
-    EXPECT_TRUE(can_lock(fs::path(dir.checkpoints()) / "lock"));
+    EXPECT_TRUE(can_lock(fs::path(dir.file("checkpoints")) / "lock"));
   }
-  const checkpoint::directory again(grid, dir.checkpoints());
+  const checkpoint::directory again(grid, dir.file("checkpoints"));
   EXPECT_EQ(again.job(), "{}");
 }
 
@@ -398,7 +363,7 @@ TEST(Directory, ASecondUserOfTheSamePathIsRefusedWhileTheFirstLives) {
 TEST(Directory, APathThatIsAFileIsRefused) {
   const scratch_dir dir;
   const process_grid grid(MPI_COMM_WORLD, shapes_for_world().front());
-  const std::string file = (fs::path(dir.root()) / "plain-file").string();
+  const std::string file = dir.file("plain-file");
   if (is_root()) std::ofstream(file) << "not a directory\n";
   comm::barrier(grid.all());
   EXPECT_THROW(checkpoint::directory(grid, file), gridlu::error);
@@ -407,7 +372,7 @@ TEST(Directory, APathThatIsAFileIsRefused) {
 TEST(Directory, RequireSpaceRefusesWhatTheDiskCannotHold) {
   const scratch_dir dir;
   const process_grid grid(MPI_COMM_WORLD, shapes_for_world().front());
-  const checkpoint::directory d(grid, dir.checkpoints());
+  const checkpoint::directory d(grid, dir.file("checkpoints"));
   EXPECT_NO_THROW(d.require_space(1e3));
   expect_error(error_kind::output, "1e30 bytes", [&] { d.require_space(1e30); });
 }
@@ -419,7 +384,7 @@ TEST(Directory, ALaterSaveReplacesTheEarlierOne) {
   const index_t n = 40;
   dist_matrix<double> a(grid, n, n, 6);
   a.fill([](index_t i, index_t j) { return random_entry<double>(40, i, j); });
-  const checkpoint::directory d(grid, dir.checkpoints());
+  const checkpoint::directory d(grid, dir.file("checkpoints"));
   const auto early = factor_until(a, 6);
   d.save(a, early, checkpoint::progress{early.columns_done, 1, 0, 1}, "job");
   const auto later = factor(a, lu_result(early), [&] {
@@ -478,7 +443,7 @@ TEST(Directory, StatesThatDoNotFitOrWereAlteredAreRefused) {
   a.fill([](index_t i, index_t j) { return random_entry<double>(48, i, j); });
   const auto state = factor_until(a, 20);
   const auto work = a.gather();
-  const checkpoint::directory d(grid, dir.checkpoints());
+  const checkpoint::directory d(grid, dir.file("checkpoints"));
   const auto save = [&] { d.save(a, state, checkpoint::progress{state.columns_done}, "job"); };
   save();
 

@@ -31,36 +31,6 @@ class IoComplex : public ::testing::Test {};
 using complex_types = ::testing::Types<std::complex<float>, std::complex<double>>;
 TYPED_TEST_SUITE(IoComplex, complex_types);
 
-// A fresh directory for one test: rank 0 makes it, every rank learns its name, and rank
-// 0 removes it once every rank is done with it.
-class scratch_dir {
-public:
-  scratch_dir() : world_(MPI_COMM_WORLD, {1, world_size()}) {
-    if (world_.rank() == 0) {
-      std::string pattern = (fs::temp_directory_path() / "gridlu-test-io-XXXXXX").string();
-      path_ = mkdtemp(pattern.data()) ? pattern : "";
-    }
-    comm::broadcast(world_.all(), path_, 0);
-    EXPECT_FALSE(path_.empty()) << "mkdtemp failed";
-  }
-  ~scratch_dir() {
-    comm::barrier(world_.all());
-    std::error_code ec;
-    if (world_.rank() == 0) fs::remove_all(path_, ec);
-  }
-  std::string file(const std::string& name) const { return (fs::path(path_) / name).string(); }
-  const process_grid& world() const { return world_; }
-
-private:
-  static int world_size() {
-    int n = 0;
-    MPI_Comm_size(MPI_COMM_WORLD, &n);
-    return n;
-  }
-  process_grid world_;
-  std::string path_;
-};
-
 std::string label(grid_shape s, index_t m, index_t n, index_t nb) {
   return "grid " + std::to_string(s.p) + "x" + std::to_string(s.q) + " " + std::to_string(m) + "x" +
          std::to_string(n) + " nb=" + std::to_string(nb);
