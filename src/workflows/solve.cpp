@@ -625,7 +625,7 @@ solve_result run_checkpointed(const process_grid& grid, job& j, const run_settin
   if (resumed && (j.n != recorded.n || j.type != recorded.type))
     throw error(error_kind::input, j.matrix_dataset + " in " + j.input +
                                        " is no longer the matrix of the job in " + dir.path());
-  dir.record_job(to_json(j).dump(2) + "\n");
+  if (const std::string text = to_json(j).dump(2) + "\n"; text != dir.job()) dir.record_job(text);
   dir.require_space(static_cast<double>(j.n) * static_cast<double>(j.n) * element_bytes(j.type));
   auto r = run_job(grid, j, run, in, &ck);
   r.restarts = ck.done.restarts;
