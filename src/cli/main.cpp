@@ -18,6 +18,7 @@
 #include "io/staged.hpp"
 #include "kernels/blas.hpp"
 #include "workflows/job.hpp"
+#include "workflows/stop.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
@@ -355,7 +356,9 @@ subcommand add_solve(CLI::App& app, double started) {
   add_verbosity(cmd, *c);
   cmd->add_option("--checkpoint", o->checkpoint_dir,
                   "keep checkpoints in this directory (locked while the run lasts); SIGTERM, "
-                  "SIGUSR1 and SIGINT then stop with a checkpoint (exit 5)");
+                  "SIGUSR1 and SIGINT reaching the ranks then stop with a checkpoint (exit 5): "
+                  "plain mpiexec kills the ranks 1 s after its own SIGINT or SIGTERM, "
+                  "tools/launch passes them on as SIGUSR1 (README, Signals)");
   cmd->add_option("--checkpoint-every", o->checkpoint_every, "minutes between checkpoints")
       ->check(CLI::NonNegativeNumber);
   cmd->add_option("--stop-after", o->stop_after,
@@ -550,6 +553,8 @@ subcommand add_info(CLI::App& app, double) {
 }  // namespace
 
 int main(int argc, char** argv) {
+  // Before MPI starts, while the parent is still the launcher; it outlives MPI_Finalize.
+  const workflows::launcher_watch watch(exit_code(error_kind::output));
   gridlu::mpi_session mpi(argc, argv);
   const double started = comm::wtime();
   const int rank = comm::world_rank();

@@ -137,11 +137,15 @@ class Job:
     """gridlu under mpiexec in the background, in a session of its own so that its ranks can
     be found, signalled and killed by id."""
 
-    def __init__(self, suite, args, ranks, cwd=None):
+    def __init__(self, suite, args, ranks, cwd=None, launcher=None):
+        """`launcher`, when given, is the command that runs mpiexec (tools/launch)."""
         self.ranks = ranks
-        self.argv = [suite.mpiexec, "-q", "-n", str(ranks), "--oversubscribe", suite.gridlu,
-                     *map(str, args)]
+        self.argv = [launcher or suite.mpiexec, "-q", "-n", str(ranks), "--oversubscribe",
+                     suite.gridlu, *map(str, args)]
         self._exe = os.path.realpath(suite.gridlu)
+        # Sessions of the job: its own, and those its processes start (tools/launch puts
+        # mpiexec in one), remembered so that ranks outliving mpiexec are still found.
+        self._sessions = set()
         # Files, not pipes: nobody reads while the job runs.
         self._out, self._err = tempfile.TemporaryFile("w+"), tempfile.TemporaryFile("w+")
         self.started = time.monotonic()
@@ -156,8 +160,8 @@ class Job:
         return self.proc.poll() is None
 
     def _session(self):
-        """(pid, process group, executable) of the live processes in the job's session."""
-        found = []
+        """(pid, process group, executable) of the live processes in the job's sessions."""
+        live = {}
         for entry in os.scandir("/proc"):
             if not entry.name.isdigit():
                 continue
@@ -165,13 +169,15 @@ class Job:
                 stat = Path(entry.path, "stat").read_text()
                 # After the command name: state, ppid, process group, session, ...
                 fields = stat[stat.rindex(")") + 2:].split()
-                if int(fields[3]) != self.proc.pid:
-                    continue
                 exe = os.readlink(os.path.join(entry.path, "exe"))  # fails for zombies
             except (OSError, ValueError):
                 continue
-            found.append((int(entry.name), int(fields[2]), exe))
-        return found
+            live[int(entry.name)] = (int(fields[1]), int(fields[2]), int(fields[3]), exe)
+        self._sessions.add(self.proc.pid)
+        self._sessions |= {pid for pid, (ppid, _, sid, _) in live.items()
+                           if sid == pid and live.get(ppid, (0, 0, 0, ""))[2] in self._sessions}
+        return [(pid, pgid, exe) for pid, (_, pgid, sid, exe) in live.items()
+                if sid in self._sessions]
 
     def rank_pids(self, timeout=30):
         """The pids of the gridlu ranks, waiting until all have started."""
@@ -244,6 +250,23 @@ def partials(directory):
                 and os.path.exists(os.path.join(e.path, "checkpoint.h5"))]
     except FileNotFoundError:
         return []
+
+
+def staging_left(root):
+    """Staging directories, or temporary files of the scheme before them, anywhere under
+    `root`: every output is made in a staging directory beside its target and renamed out of
+    it, so none may remain after a run that ended by itself."""
+    return sorted(str(p) for p in Path(root).rglob("*")
+                  if p.name.startswith(STAGING_PREFIX) or ".partial-" in p.name)
+
+
+def alive(pid):
+    """The process runs (a zombie has ended)."""
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return False
+    return stat[stat.rindex(")") + 2:].split()[0] != "Z"
 
 
 def committed(directory):
