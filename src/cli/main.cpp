@@ -47,7 +47,7 @@ constexpr int stopped_code = 5;
 
 constexpr const char* exit_codes_help =
     "Exit codes: 0 solved, 1 internal error, 2 usage error, 3 input data error,\n"
-    "            4 numerically singular, 5 stopped early with a checkpoint,\n"
+    "            4 numerically singular, 5 stopped early (with a checkpoint if asked),\n"
     "            6 output or resource failure (disk full, not writable, busy).";
 
 struct common_options {

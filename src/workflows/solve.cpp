@@ -341,12 +341,11 @@ private:
       run_.progress(1.0 - remaining(state.columns_done) / total_, seconds,
                     seconds > 0 ? flops / seconds * 1e-9 : 0.0);
     }
-    if (!ck_) return step_request::go_on;
     const std::int64_t flags = requests(state, now);
     if (!over_at_first_step_) over_at_first_step_ = (flags & budget_flag) != 0;
     if (flags == 0) return step_request::go_on;
     if (!state.settled) return step_request::settle;  // a checkpoint needs a settled state
-    save(state);
+    if (ck_) save(state);
     if (!(flags & (signal_flag | budget_flag))) return step_request::go_on;
     r_.stopped = true;
     r_.budget_too_short = (flags & budget_flag) && *over_at_first_step_;
@@ -364,6 +363,12 @@ private:
   index_t saved_at_ = -1;
   std::optional<bool> over_at_first_step_;  // the budget was exceeded at the first step
 };
+
+// What asked this rank to stop, if it was this rank that was asked.
+std::string stopped_by() {
+  const std::string why = stop_requests::reason();
+  return why.empty() ? "a signal to another rank" : why;
+}
 
 // ---------------------------------------------------------------------------------------
 // One run of a job, stage by stage.
@@ -393,6 +398,11 @@ public:
     r_.read_seconds = timed(grid_, [&] { read(factors ? &*factors : nullptr, from_state); });
     if (!factors) {
       if (!checkpointed_factor<T>(grid_, j_, run_, a_, ck_, r_)(lu_)) {
+        if (!ck_)
+          throw error(error_kind::stopped,
+                      "stopped on request (" + stopped_by() +
+                          ") before X was written; nothing was kept: a solve keeps its work "
+                          "only with --checkpoint DIR");
         r_.what = j_;
         r_.total_seconds = comm::wtime() - start;
         return r_;
@@ -703,12 +713,12 @@ solve_result solve_file(const process_grid& grid, const solve_options& o, const 
   job j = job_of(o);
   comm::broadcast(grid.all(), j.id, 0);  // one identity, rank 0's
   check_paths(grid, j, run.report);
+  // Signals count from the start: one during the reading stops at the first step.
+  const stop_requests stops;
   if (j.checkpoint_dir.empty()) {
     const inputs in = open_inputs(grid, j);
     return run_job(grid, j, run, in, nullptr);
   }
-  // Signals count from the start: one during the reading stops at the first step.
-  const stop_requests stops;
   const checkpoint::directory dir(grid, j.checkpoint_dir, checkpoint::directory::opening::create);
   claim_directory(dir, j, run);
   return run_checkpointed(grid, j, run, dir, false);
