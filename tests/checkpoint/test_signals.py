@@ -247,4 +247,16 @@ with suite.case("launcher variable set, parent gone: ended within seconds; unset
     c.check(lasted <= LAUNCHER_GONE_SECONDS, f"ran on {lasted:.1f} s after its parent left")
     c.check(unwatched_alive, "a process started without a launcher ended with its parent")
 
+with suite.case("SIGUSR1 to the ranks of a solve without --checkpoint: exit 5, one line, "
+                "no X, nothing staged") as c:
+    out = c.dir / "x.h5"
+    job = Job(suite, ["solve", system.path, "--out", out, "--block", BLOCK, "--progress"], RANKS)
+    # --progress prints its first line after the first block step: the run is factoring.
+    c.require(job.announced(r"factorization") is not None, "the run ended before factoring")
+    job.signal_ranks(signal.SIGUSR1)
+    run = job.wait()
+    c.failed_with(run, STOPPED, r"nothing was kept")
+    c.check(not out.exists(), f"a stopped run wrote {out}")
+    c.check(not staging_left(c.dir), f"staging left: {staging_left(c.dir)}")
+
 suite.finish()
