@@ -109,7 +109,7 @@ template <class T>
 void max(const communicator& c, T* data, index_t count);
 
 // Every rank brings its own outcome (null if it succeeded). If any rank failed, all
-// ranks throw the same gridlu::error: the code and message of the lowest failing rank.
+// ranks throw the same gridlu::error: the kind and message of the lowest failing rank.
 void agree(const communicator& c, std::exception_ptr mine);
 
 // Runs f on every rank and agrees on the outcome before anyone moves on.

@@ -76,7 +76,12 @@ int take_lock(const std::string& dir) {
     throw error(error_kind::output,
                 "cannot use " + dir + " as checkpoint directory: " + std::strerror(errno));
   if (flock(fd, LOCK_EX | LOCK_NB) != 0) {
+    const int why = errno;
     close(fd);
+    if (why != EWOULDBLOCK)
+      throw error(error_kind::output, "cannot lock " + path + ": " + std::strerror(why) +
+                                          " (a file system without locks cannot hold "
+                                          "checkpoints safely)");
     throw error(error_kind::output, dir +
                                         " is in use by another running gridlu (its lock is "
                                         "held); wait for it to end, or use another directory");
