@@ -69,8 +69,7 @@ std::string new_job_id() {
 
 bool same_work(const job& a, const job& b) {
   return a.input == b.input && a.matrix_dataset == b.matrix_dataset && a.rhs_file == b.rhs_file &&
-         a.rhs_dataset == b.rhs_dataset && a.column_major == b.column_major &&
-         a.output == b.output;
+         a.rhs_dataset == b.rhs_dataset && a.column_major == b.column_major && a.output == b.output;
 }
 
 }  // namespace gridlu::workflows
