@@ -7,8 +7,8 @@
 #include <numeric>
 
 #include "gridlu/generate.hpp"
-#include "kernels/blas.hpp"
 #include "gridlu/lu.hpp"
+#include "kernels/blas.hpp"
 #include "support.hpp"
 
 namespace {
