@@ -102,6 +102,9 @@ bool same_file(const file_identity& a, const file_identity& b);
 std::string checksum_text(std::uint64_t sum);
 std::optional<std::uint64_t> parse_checksum(const std::string& text);
 
+// "3000 x 4", "3000", or "scalar": a dataset's dimensions as people write them.
+std::string shape_text(const std::vector<index_t>& dims);
+
 // "HDF5 1.10.8"
 std::string library_version();
 

@@ -452,13 +452,6 @@ subcommand add_generate(CLI::App& app, double) {
           }};
 }
 
-std::string dims_text(const std::vector<index_t>& dims) {
-  if (dims.empty()) return "scalar";
-  std::string t;
-  for (std::size_t k = 0; k < dims.size(); ++k) t += (k ? " x " : "") + std::to_string(dims[k]);
-  return t;
-}
-
 std::string file_text(const std::filesystem::path& path) {
   std::ifstream in(path, std::ios::binary);
   return in ? std::string(std::istreambuf_iterator<char>(in), {}) : std::string();
@@ -477,9 +470,8 @@ void checkpoint_summary(const std::string& dir) {
               j.output.c_str(), j.type.c_str(), static_cast<long long>(j.n),
               static_cast<long long>(j.nrhs));
   const auto state = std::filesystem::path(dir) / "checkpoint.h5";
-  const auto marker = nlohmann::json::parse(file_text(std::filesystem::path(dir) / "complete.json"),
-                                            nullptr, false);
-  const bool finished = marker.is_object() && marker.value("job_id", "") == j.id;
+  const bool finished =
+      workflows::marks_completion(file_text(std::filesystem::path(dir) / "complete.json"), j);
   if (std::filesystem::exists(state)) {
     std::map<std::string, std::string> a;
     for (const auto& [k, v] : io::describe(state.string()).attributes) a[k] = v;
@@ -525,8 +517,8 @@ void file_summary(const std::string& path) {
   };
   for (const auto& group : d.groups) attributes_of(group);
   for (const auto& item : d.datasets) {
-    std::printf("dataset    %s  %s  %s\n", item.path.c_str(), dims_text(item.shape.dims).c_str(),
-                item.shape.type.c_str());
+    std::printf("dataset    %s  %s  %s\n", item.path.c_str(),
+                io::shape_text(item.shape.dims).c_str(), item.shape.type.c_str());
     attributes_of(item);
   }
 }

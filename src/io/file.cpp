@@ -82,13 +82,6 @@ dataset_shape describe_dataset(hid_t dset) {
   return s;
 }
 
-std::string dims_text(const std::vector<index_t>& dims) {
-  if (dims.empty()) return "a scalar";
-  std::string t;
-  for (std::size_t k = 0; k < dims.size(); ++k) t += (k ? " x " : "") + std::to_string(dims[k]);
-  return t;
-}
-
 // A header can claim far more entries than the file holds (a crafted or damaged file):
 // refuse before allocating memory for them. Unfiltered, every entry takes its bytes in the
 // file; deflate, the filter HDF5 ships, compresses by about 1000:1 at most.
@@ -100,7 +93,7 @@ void require_stored(hid_t dset, const dataset_shape& s, const std::string& what)
   const double most = H5Pget_nfilters(dcpl.get()) > 0 ? 1100.0 : 1.0;
   const double stored = static_cast<double>(H5Dget_storage_size(dset));
   if (bytes > stored * most)
-    throw error(error_kind::input, what + " claims " + dims_text(s.dims) + " entries, " +
+    throw error(error_kind::input, what + " claims " + shape_text(s.dims) + " entries, " +
                                        std::to_string(static_cast<long long>(bytes)) +
                                        " bytes, but the file stores " +
                                        std::to_string(static_cast<long long>(stored)) +
@@ -340,9 +333,9 @@ void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) con
   // Callers check the inputs' shapes first, but datasets of other files (saved factors,
   // checkpoints) reach here as the file has them: a misfit is the file's, not gridlu's.
   if (!fits || !s.usable || (s.is_complex && !scalar_traits<T>::is_complex))
-    throw error(error_kind::input, quoted(name) + " in " + path_ + " is " + dims_text(s.dims) +
+    throw error(error_kind::input, quoted(name) + " in " + path_ + " is " + shape_text(s.dims) +
                                        " " + s.type + "; expected " +
-                                       dims_text({file_rows, plan.file_cols}) + " " +
+                                       shape_text({file_rows, plan.file_cols}) + " " +
                                        std::string(scalar_traits<T>::name) +
                                        (scalar_traits<T>::is_complex ? " (or real)" : ""));
   const int me = grid_->rank();
@@ -683,6 +676,13 @@ std::optional<std::uint64_t> parse_checksum(const std::string& text) {
   const auto [end, ec] = std::from_chars(text.data() + 2, text.data() + text.size(), v, 16);
   if (ec != std::errc{} || end != text.data() + text.size()) return std::nullopt;
   return v;
+}
+
+std::string shape_text(const std::vector<index_t>& dims) {
+  if (dims.empty()) return "scalar";
+  std::string t;
+  for (std::size_t k = 0; k < dims.size(); ++k) t += (k ? " x " : "") + std::to_string(dims[k]);
+  return t;
 }
 
 std::string library_version() {

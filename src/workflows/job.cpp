@@ -49,6 +49,12 @@ void write_attributes(io::file& f, const std::string& object, const job& j) {
   });
 }
 
+bool marks_completion(const std::string& marker, const job& j) {
+  const auto m = nlohmann::json::parse(marker, nullptr, false);
+  const auto id = m.is_object() ? m.find("job_id") : m.end();
+  return m.is_object() && id != m.end() && id->is_string() && id->get<std::string>() == j.id;
+}
+
 std::string new_job_id() {
   unsigned char bytes[16];
   std::size_t got = 0;

@@ -69,6 +69,9 @@ job job_from_json(const std::string& text, const std::string& where);
 // The job's fields as attributes of an HDF5 object (booleans as 0/1).
 void write_attributes(io::file& f, const std::string& object, const job& j);
 
+// True when a completion marker's text records this job (and not another) as finished.
+bool marks_completion(const std::string& marker, const job& j);
+
 // A new random job identity (32 hex digits from the kernel's random source).
 std::string new_job_id();
 

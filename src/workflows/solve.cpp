@@ -699,13 +699,6 @@ job recorded_job(const checkpoint::directory& dir) {
   return job_from_json(text, (std::filesystem::path(dir.path()) / "job.json").string());
 }
 
-// The finished job's marker, if it is this job's.
-bool completed(const checkpoint::directory& dir, const job& j) {
-  const auto marker = nlohmann::json::parse(dir.completion(), nullptr, false);
-  return marker.is_object() && marker.contains("job_id") && marker["job_id"].is_string() &&
-         marker["job_id"].get<std::string>() == j.id;
-}
-
 }  // namespace
 
 solve_result solve_file(const process_grid& grid, const solve_options& o, const run_settings& run) {
@@ -736,7 +729,7 @@ solve_result resume_dir(const process_grid& grid, const resume_options& ro,
   if (ro.checkpoint_every >= 0) j.checkpoint_every = ro.checkpoint_every;
   j.force = j.force || ro.force;
   j.checkpoint_dir = dir.path();
-  if (completed(dir, j)) return finish_again(grid, j, run, dir);
+  if (marks_completion(dir.completion(), j)) return finish_again(grid, j, run, dir);
   check_paths(grid, j, run.report);
   return run_checkpointed(grid, j, run, dir, true);
 }
