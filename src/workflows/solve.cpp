@@ -589,8 +589,9 @@ std::string describe_job(const job& j, const checkpoint::directory& dir, bool fi
 // state is discarded only with --force, and the same job is continued by `resume`.
 void claim_directory(const checkpoint::directory& dir, const job& j, const run_settings& run) {
   const std::string text = dir.job();
-  const bool finished = !dir.completion().empty() && !dir.has_state();
-  if (text.empty() && !dir.has_state() && dir.completion().empty()) return;
+  const bool state = dir.has_state(), marked = !dir.completion().empty();
+  if (text.empty() && !state && !marked) return;
+  const bool finished = marked && !state;
   std::optional<job> previous;
   try {
     previous = job_from_json(text, dir.path());
