@@ -31,6 +31,15 @@ class IoComplex : public ::testing::Test {};
 using complex_types = ::testing::Types<std::complex<float>, std::complex<double>>;
 TYPED_TEST_SUITE(IoComplex, complex_types);
 
+// Writes m as dataset `name` of a new file at path, closed.
+template <scalar T>
+void write_file(const process_grid& grid, const std::string& path, const std::string& name,
+                const dist_matrix<T>& m, bool one_dimensional = false) {
+  io::file f(grid, path, io::file::mode::create);
+  f.write(name, m, one_dimensional);
+  f.close();
+}
+
 std::string label(grid_shape s, index_t m, index_t n, index_t nb) {
   return "grid " + std::to_string(s.p) + "x" + std::to_string(s.q) + " " + std::to_string(m) + "x" +
          std::to_string(n) + " nb=" + std::to_string(nb);
@@ -107,9 +116,7 @@ TYPED_TEST(Io, WriteThenReadIsExactOnEveryGridAndBlockSize) {
       {
         dist_matrix<T> a(grid, m, n, nb);
         a.fill(entry);
-        io::file f(grid, path, io::file::mode::create);
-        f.write("a", a);
-        f.close();
+        write_file(grid, path, "a", a);
       }
       const io::file f(grid, path, io::file::mode::read);
       EXPECT_TRUE(f.has_dataset("a"));
@@ -148,9 +155,7 @@ TYPED_TEST(Io, ReadOnAnotherGridAndBlockSizeThanWritten) {
       {
         dist_matrix<T> a(writer, m, n, nb);
         a.fill(entry);
-        io::file f(writer, path, io::file::mode::create);
-        f.write("a", a);
-        f.close();
+        write_file(writer, path, "a", a);
       }
       {
         const io::file f(reader, path, io::file::mode::read);
@@ -188,9 +193,7 @@ TYPED_TEST(Io, TransposedReadOfTheTransposeGivesTheMatrix) {
       {
         dist_matrix<T> t(grid, n, m, nb);
         t.fill(transpose);
-        io::file f(grid, path, io::file::mode::create);
-        f.write("t", t);
-        f.close();
+        write_file(grid, path, "t", t);
       }
       const io::file f(grid, path, io::file::mode::read);
       EXPECT_EQ(f.shape("t").dims, (std::vector<index_t>{n, m}));
@@ -225,9 +228,7 @@ TYPED_TEST(Io, OneDimensionalDatasetsReadAsColumns) {
       {
         dist_matrix<T> v(grid, n, 1, nb);
         v.fill(entry);
-        io::file f(grid, path, io::file::mode::create);
-        f.write("v", v, true);
-        f.close();
+        write_file(grid, path, "v", v, true);
       }
       const io::file f(grid, path, io::file::mode::read);
       EXPECT_EQ(f.shape("v").dims, (std::vector<index_t>{n}));
@@ -256,9 +257,7 @@ TYPED_TEST(IoComplex, RealDatasetReadIntoComplexHasZeroImaginaryParts) {
       {
         dist_matrix<R> r(grid, m, n, nb);
         r.fill(real_entry);
-        io::file f(grid, path, io::file::mode::create);
-        f.write("r", r);
-        f.close();
+        write_file(grid, path, "r", r);
       }
       const io::file f(grid, path, io::file::mode::read);
       EXPECT_FALSE(f.shape("r").is_complex);
@@ -283,9 +282,7 @@ TYPED_TEST(IoComplex, ComplexDatasetIsNotReadIntoARealMatrix) {
   {
     dist_matrix<T> c(grid, 9, 9, 4);
     c.fill([](index_t i, index_t j) { return random_entry<T>(1, i, j); });
-    io::file f(grid, path, io::file::mode::create);
-    f.write("c", c);
-    f.close();
+    write_file(grid, path, "c", c);
   }
   const io::file f(grid, path, io::file::mode::read);
   dist_matrix<R> r(grid, 9, 9, 4);
@@ -310,11 +307,7 @@ TYPED_TEST(Io, ChecksumsAgreeAcrossGridsBlockSizesAndTheFile) {
         a.fill(entry);
         EXPECT_EQ(content_checksum(a), reference);
         const std::string path = dir.file("sum.h5");
-        {
-          io::file f(grid, path, io::file::mode::create);
-          f.write("a", a);
-          f.close();
-        }
+        { write_file(grid, path, "a", a); }
         {
           const io::file f(grid, path, io::file::mode::read);
           EXPECT_EQ(f.checksum<T>("a"), reference);
