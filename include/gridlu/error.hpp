@@ -8,12 +8,12 @@
 namespace gridlu {
 
 enum class error_kind : int {
-  internal,  // a bug or an unexpected library failure
-  usage,     // options that cannot work together, or a request refused before any work
-  input,     // missing, damaged or unsuitable input data (files, datasets, checkpoints)
-  output,    // an output or a resource failed: disk full, not writable, out of memory, busy
-  singular,  // the matrix is numerically singular: no solution
-  stopped,   // stopped early on request, with the state saved
+  internal,   // a bug or an unexpected library failure
+  usage,      // options that cannot work together, or a request refused before any work
+  input,      // missing, damaged or unsuitable input data (files, datasets, checkpoints)
+  output,     // an output or a resource failed: disk full, not writable, out of memory, busy
+  numerical,  // no usable solution: A exactly singular, or X not finite
+  stopped,    // stopped early on request, with the state saved
 };
 
 class error : public std::runtime_error {

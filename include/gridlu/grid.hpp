@@ -102,11 +102,14 @@ void broadcast(const communicator& c, T* data, index_t count, int root);
 // Root's text on every rank.
 void broadcast(const communicator& c, std::string& text, int root);
 
-// Elementwise reductions in place over all ranks of c (real scalars and index_t).
+// Elementwise reductions in place over all ranks of c (sum: any scalar or index_t;
+// max, min: real scalars and index_t). A NaN anywhere makes max and min NaN.
 template <class T>
 void sum(const communicator& c, T* data, index_t count);
 template <class T>
 void max(const communicator& c, T* data, index_t count);
+template <class T>
+void min(const communicator& c, T* data, index_t count);
 
 // Every rank brings its own outcome (null if it succeeded). If any rank failed, all
 // ranks throw the same gridlu::error: the kind and message of the lowest failing rank.

@@ -72,8 +72,14 @@ lu_result factor(dist_matrix<T>& a, const lu_options& options = {});
 template <scalar T>
 lu_result factor(dist_matrix<T>& a, lu_result state, const lu_options& options = {});
 
-// Overwrites b (n x k, same grid and block size as lu) with inv(A) b.
+// The system a solve with A's factors answers: A x = b, A^T x = b or A^H x = b (the
+// conjugate transpose; the same as A^T for real types).
+enum class solve_with { a, transpose, adjoint };
+
+// Overwrites b (n x k, same grid and block size as lu) with inv(op(A)) b, op as `with`
+// says. Collective over lu's grid.
 template <scalar T>
-void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b);
+void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b,
+           solve_with with = solve_with::a);
 
 }  // namespace gridlu

@@ -108,7 +108,8 @@ std::optional<std::pair<index_t, index_t>> first_nonfinite(const dist_matrix<T>&
 
 // A checksum of the entries with their global positions: the same on any grid and
 // block size, different after any change of a value (with overwhelming probability).
+// `transposed`: the checksum of the transpose of a, as if it had been read the other way.
 template <scalar T>
-std::uint64_t content_checksum(const dist_matrix<T>& a);
+std::uint64_t content_checksum(const dist_matrix<T>& a, bool transposed = false);
 
 }  // namespace gridlu

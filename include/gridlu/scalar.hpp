@@ -14,40 +14,55 @@ struct scalar_traits;
 template <>
 struct scalar_traits<float> {
   using real = float;
+  using wide = double;  // residuals are formed in this type
   static constexpr bool is_complex = false;
   static constexpr std::string_view name = "float32";
 };
 template <>
 struct scalar_traits<double> {
   using real = double;
+  using wide = double;  // residuals are formed in this type
   static constexpr bool is_complex = false;
   static constexpr std::string_view name = "float64";
 };
 template <>
 struct scalar_traits<std::complex<float>> {
   using real = float;
+  using wide = std::complex<double>;  // residuals are formed in this type
   static constexpr bool is_complex = true;
   static constexpr std::string_view name = "complex64";
 };
 template <>
 struct scalar_traits<std::complex<double>> {
   using real = double;
+  using wide = std::complex<double>;  // residuals are formed in this type
   static constexpr bool is_complex = true;
   static constexpr std::string_view name = "complex128";
 };
 
 template <class T>
 using real_t = typename scalar_traits<T>::real;
+// The double-precision type of the same kind: single-precision residuals and sums are
+// formed in it so that they neither overflow nor lose the digits being judged.
+template <class T>
+using wide_t = typename scalar_traits<T>::wide;
 
 template <class T>
 concept scalar = requires {
   typename scalar_traits<T>::real;
 };
 
-// Unit roundoff-sized machine epsilon of the type (LAPACK's xLAMCH('E') is half this).
+// Machine epsilon of the type, the distance from 1 to the next number.
 template <scalar T>
 constexpr real_t<T> epsilon() {
   return std::numeric_limits<real_t<T>>::epsilon();
+}
+
+// Unit roundoff u = epsilon / 2: the largest relative error of one rounding, the unit
+// in which accuracy figures are stated (LAPACK's xLAMCH('E')).
+template <scalar T>
+constexpr double unit_roundoff() {
+  return static_cast<double>(epsilon<T>()) / 2;
 }
 
 // |Re| + |Im|: the magnitude LAPACK's pivot search compares for complex types.

@@ -32,7 +32,7 @@ int exit_code(error_kind kind) {
       return 2;
     case error_kind::input:
       return 3;
-    case error_kind::singular:
+    case error_kind::numerical:
       return 4;
     case error_kind::stopped:
       return 5;
@@ -44,11 +44,15 @@ int exit_code(error_kind kind) {
   return 1;
 }
 constexpr int stopped_code = 5;
+// Not an error: X is there with its figures, but short of what --require-digits asks.
+constexpr int short_of_digits_code = 7;
 
 constexpr const char* exit_codes_help =
     "Exit codes: 0 solved, 1 internal error, 2 usage error, 3 input data error,\n"
-    "            4 numerically singular, 5 stopped early (with a checkpoint if asked),\n"
-    "            6 output or resource failure (disk full, not writable, busy).";
+    "            4 numerical failure (A exactly singular, or X not finite: nothing written),\n"
+    "            5 stopped early (with a checkpoint if asked),\n"
+    "            6 output or resource failure (disk full, not writable, busy),\n"
+    "            7 X written but with fewer trusted digits than --require-digits asks.";
 
 struct common_options {
   std::string grid;  // empty: as square as possible
@@ -70,6 +74,12 @@ void add_lookahead(CLI::App* cmd, int& depth) {
                   "panels factored and sent ahead of the trailing update (0: none)")
       ->capture_default_str()
       ->check(CLI::NonNegativeNumber);
+}
+
+void add_require_digits(CLI::App* cmd, std::int64_t& digits) {
+  cmd->add_option("--require-digits", digits,
+                  "exit 7 when fewer significant digits of X can be trusted (X is still written)")
+      ->check(CLI::Range(0, 20));
 }
 
 void add_verbosity(CLI::App* cmd, common_options& o) {
@@ -177,11 +187,40 @@ void print_stopped(const process_grid& grid, const workflows::solve_result& r) {
   std::printf("resume with: %s\n", resume_command(grid, j.checkpoint_dir).c_str());
 }
 
+// The trust figures, the same words for every command that solves.
+void print_trust(const trust_report& t, const std::optional<refinement>& refined) {
+  const double u = t.unit_roundoff;
+  const auto count = t.backward.normwise.size();
+  std::printf("  accuracy   backward error%s: normwise %.2f u, componentwise %.2f u (u = %.1e)\n",
+              count > 1 ? (", worst of " + std::to_string(count)).c_str() : "",
+              t.worst_normwise() / u, t.worst_componentwise() / u, u);
+  std::printf("  condition  ~%.1e (1-norm estimate); growth %.3g; smallest pivot %.1e of max|A|\n",
+              t.condition_1, t.growth, t.smallest_pivot);
+  if (refined)
+    std::printf("  refined    %d iteration(s): componentwise backward error %.2f u -> %.2f u\n",
+                refined->iterations, refined->componentwise.front() / u,
+                refined->componentwise.back() / u);
+  const double bound = t.worst_forward_bound();
+  const char* where = count > 1 ? "every column of X" : "X";
+  if (t.trusted_digits > 0)
+    std::printf("  trust      about %d significant digits in %s (relative error <= %.1e)\n",
+                t.trusted_digits, where, bound);
+  else if (std::isfinite(bound))
+    std::printf("  trust      no digit of %s is certain (relative error bound %.1e)\n", where,
+                bound);
+  else
+    std::printf("  trust      no digit of %s is certain (condition x backward error >= 1)\n",
+                where);
+  for (std::size_t k = 0; k < t.flags.size(); ++k)
+    std::printf("  flag       %s: %s\n", t.flags[k].c_str(), t.reasons[k].c_str());
+}
+
 void print_solved(const process_grid& grid, const workflows::solve_result& r) {
   const auto& j = r.what;
   std::printf("gridlu solve  %s -> %s\n", j.input.c_str(), j.output.c_str());
-  std::printf("  system     n = %lld, %lld right-hand side(s), %s\n", static_cast<long long>(j.n),
-              static_cast<long long>(j.nrhs), j.type.c_str());
+  std::printf("  system     %s X = B, n = %lld, %lld right-hand side(s), %s\n",
+              j.solve_with.c_str(), static_cast<long long>(j.n), static_cast<long long>(j.nrhs),
+              j.type.c_str());
   std::printf("  grid       %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
               grid.size(), static_cast<long long>(j.block));
   std::printf(
@@ -196,14 +235,20 @@ void print_solved(const process_grid& grid, const workflows::solve_result& r) {
         j.checkpoint_dir.c_str(), static_cast<long long>(r.checkpoints),
         static_cast<long long>(r.restarts), r.factor_seconds_total,
         r.state_removed ? "; working state removed, X is written" : "");
-  std::printf("  accuracy   worst backward error %.2e (accepted up to 10 n eps = %.2e): %s\n",
-              r.worst_backward_error(), r.threshold, r.accepted() ? "ACCEPTED" : "SUSPECT");
+  print_trust(r.trust, r.refined);
+}
+
+// Exit 7 when X has fewer trusted digits than asked (0: nothing asked).
+int digits_code(const trust_report& t, std::int64_t required) {
+  return t.trusted_digits < required ? short_of_digits_code : 0;
 }
 
 // What rank 0 says after a solve or a resume, and the exit code.
 int report_solve(const process_grid& grid, const workflows::solve_result& r,
                  const common_options& c) {
-  const int code = r.stopped ? stopped_code : 0;
+  const int code = r.stopped            ? stopped_code
+                   : r.already_complete ? 0
+                                        : digits_code(r.trust, r.what.require_digits);
   if (grid.rank() != 0) return code;
   if (r.already_complete) {
     std::printf("gridlu: the job in %s is complete; its X is in %s (nothing to do)\n",
@@ -253,10 +298,10 @@ int run_bench(const common_options& c, const workflows::bench_options& o) {
   return 0;
 }
 
-int run_demo(const common_options& c, const workflows::demo_options& o) {
+int run_demo(const common_options& c, const workflows::demo_options& o, std::int64_t digits) {
   const auto grid = make_grid(c);
   const auto r = workflows::demo(grid, o);
-  const int code = r.first_zero_pivot >= 0 ? exit_code(error_kind::singular) : 0;
+  const int code = digits_code(r.trust, digits);
   if (grid.rank() != 0) return code;
   std::printf("gridlu demo: random %s system, n = %lld, %lld right-hand side(s)\n", o.type.c_str(),
               static_cast<long long>(o.n), static_cast<long long>(o.nrhs));
@@ -265,12 +310,7 @@ int run_demo(const common_options& c, const workflows::demo_options& o) {
   std::printf("  generate  %9.3f s\n  factor    %9.3f s   %.2f GFLOP/s\n", r.generate_seconds,
               r.factor_seconds, r.gflops);
   std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds, r.check_seconds);
-  if (r.first_zero_pivot >= 0)
-    std::printf("  exactly zero pivot in column %lld (0-based, as everywhere in gridlu)\n",
-                static_cast<long long>(r.first_zero_pivot));
-  std::printf("  backward error, worst of %zu: %.2e (accepted up to 10 n eps = %.2e): %s\n",
-              r.backward_errors.size(), r.worst_backward_error(), r.threshold,
-              r.accepted() ? "GOOD" : "POOR");
+  print_trust(r.trust, std::nullopt);
   std::fflush(stdout);
   write_report(grid, c.report, r.json(o));
   return code;
@@ -327,10 +367,12 @@ subcommand add_demo(CLI::App& app, double) {
   cmd->add_option("--type", o->type, "float32, float64, complex64 or complex128")
       ->capture_default_str();
   cmd->add_option("--seed", o->seed, "seed of the generated system")->capture_default_str();
+  auto digits = std::make_shared<std::int64_t>(0);
+  add_require_digits(cmd, *digits);
   add_common(cmd, *c);
   cmd->footer("Example:\n  mpiexec -n 2 gridlu demo --n 3000 --rhs 4\n\n" +
               std::string(exit_codes_help));
-  return {cmd, [=] { return run_demo(*c, *o); }};
+  return {cmd, [=] { return run_demo(*c, *o, *digits); }};
 }
 
 subcommand add_solve(CLI::App& app, double started) {
@@ -348,6 +390,15 @@ subcommand add_solve(CLI::App& app, double started) {
   cmd->add_flag("--column-major", o->column_major,
                 "A's dataset holds the transpose (element [i][j] is A(j, i)), as column-major "
                 "writers store it");
+  auto* transpose = cmd->add_flag_callback(
+      "--transpose", [=] { o->solve_with = "A^T"; }, "solve A^T X = B (with A's factors)");
+  cmd->add_flag_callback(
+         "--adjoint", [=] { o->solve_with = "A^H"; },
+         "solve A^H X = B, A^H the conjugate transpose (A^T for real A)")
+      ->excludes(transpose);
+  cmd->add_flag("--refine", o->refine,
+                "refine X iteratively in the working precision (keeps a second copy of A)");
+  add_require_digits(cmd, o->require_digits);
   cmd->add_option("--save-factors", o->save_factors, "also write the LU factors to this file");
   cmd->add_option("--factors", o->factors, "solve with factors saved earlier instead of factoring");
   cmd->add_flag("--force", o->force,
@@ -405,6 +456,7 @@ subcommand add_resume(CLI::App& app, double started) {
       ->check(CLI::NonNegativeNumber);
   cmd->add_option("--stop-after", *stop_after, "time budget in minutes")
       ->check(CLI::NonNegativeNumber);
+  add_require_digits(cmd, o->require_digits);
   add_verbosity(cmd, *c);
   add_common(cmd, *c);
   cmd->footer(

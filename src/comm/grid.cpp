@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <charconv>
 #include <climits>
+#include <cmath>
 #include <complex>
 #include <cstdint>
 #include <cstdio>
@@ -190,9 +191,41 @@ void sum(const communicator& c, T* data, index_t count) {
   check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), MPI_SUM, c.get()),
         "MPI_Allreduce");
 }
+
+// MPI_MAX and MPI_MIN on floating types may drop a NaN; these keep it, so that a NaN
+// anywhere cannot make a figure look good.
+template <class T, bool largest>
+void extreme_keeping_nan(void* in, void* inout, int* len, MPI_Datatype*) {
+  const T* a = static_cast<const T*>(in);
+  T* b = static_cast<T*>(inout);
+  for (int i = 0; i < *len; ++i)
+    if (std::isnan(a[i]) || (largest ? a[i] > b[i] : a[i] < b[i])) b[i] = a[i];
+}
+
+template <class T, bool largest>
+MPI_Op extreme_op() {
+  if constexpr (std::is_floating_point_v<T>) {
+    static const MPI_Op op = [] {
+      MPI_Op o;
+      check(MPI_Op_create(&extreme_keeping_nan<T, largest>, 1, &o), "MPI_Op_create");
+      return o;
+    }();
+    return op;
+  } else {
+    return largest ? MPI_MAX : MPI_MIN;
+  }
+}
+
 template <class T>
 void max(const communicator& c, T* data, index_t count) {
-  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), MPI_MAX, c.get()),
+  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), extreme_op<T, true>(),
+                      c.get()),
+        "MPI_Allreduce");
+}
+template <class T>
+void min(const communicator& c, T* data, index_t count) {
+  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), extreme_op<T, false>(),
+                      c.get()),
         "MPI_Allreduce");
 }
 
@@ -404,9 +437,13 @@ GRIDLU_PIVOT_INSTANTIATE(std::complex<double>)
 template void sum<float>(const communicator&, float*, index_t);
 template void sum<double>(const communicator&, double*, index_t);
 template void sum<std::int64_t>(const communicator&, std::int64_t*, index_t);
+template void sum<std::complex<float>>(const communicator&, std::complex<float>*, index_t);
+template void sum<std::complex<double>>(const communicator&, std::complex<double>*, index_t);
 template void max<float>(const communicator&, float*, index_t);
 template void max<double>(const communicator&, double*, index_t);
 template void max<std::int64_t>(const communicator&, std::int64_t*, index_t);
+template void min<double>(const communicator&, double*, index_t);
+template void min<std::int64_t>(const communicator&, std::int64_t*, index_t);
 
 }  // namespace comm
 }  // namespace gridlu

@@ -30,8 +30,10 @@ struct interchange_plan {
   std::size_t moves = 0;                                   // over the whole process column
 };
 
+// With `inverse`, the plan undoes the sequence instead: the interchanges in reverse order,
+// which is P^T where the sequence is P.
 interchange_plan plan_interchanges(const cyclic_map& rows, int me, index_t first,
-                                   std::span<const index_t> pivots);
+                                   std::span<const index_t> pivots, bool inverse = false);
 
 // Applies a plan to the local columns in `columns`. The net permutation is exchanged in
 // one all-to-all over the process column per group of columns: one message per pair of

@@ -46,7 +46,7 @@ constexpr index_t solve_base = 32;
 template <scalar T>
 void solve_unit_lower(index_t m, index_t n, const T* l, index_t ldl, T* b, index_t ldb) {
   if (m <= solve_base) {
-    blas::trsm_left(triangle::lower, diagonal::unit, m, n, T(1), l, ldl, b, ldb);
+    blas::trsm_left(triangle::lower, diagonal::unit, blas::op::none, m, n, T(1), l, ldl, b, ldb);
     return;
   }
   const index_t h = m / 2;

@@ -1,4 +1,5 @@
-// Triangular solves with the distributed LU factors, for many right-hand sides.
+// Solves with the distributed LU factors of A, for many right-hand sides: with A, its
+// transpose or its conjugate transpose.
 #include <algorithm>
 
 #include "factor/interchange.hpp"
@@ -38,7 +39,7 @@ void sweep(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part) {
       diag.resize(static_cast<std::size_t>(jb * jb));
       if (mycol == pc) copy_block(jb, jb, lu.at(lrk, lck), lu.ld(), diag.data(), jb);
       comm::broadcast(grid.row(), diag.data(), jb * jb, pc);
-      blas::trsm_left(part, lower ? diagonal::unit : diagonal::non_unit, jb, nrhs, T(1),
+      blas::trsm_left(part, lower ? diagonal::unit : diagonal::non_unit, op::none, jb, nrhs, T(1),
                       diag.data(), jb, b.at(lrk, 0), b.ld());
       copy_block(jb, nrhs, b.at(lrk, 0), b.ld(), solved.data(), jb);
     }
@@ -55,23 +56,78 @@ void sweep(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part) {
   }
 }
 
+// Solves with op(triangle) of lu, op a transpose: op(U) is lower and goes forward, op(L)
+// upper and backward. Block row k of b needs the already solved rows times the
+// triangle's column block k (above the diagonal for U, below for L), which lies on the
+// same process rows as those rows of b: that column goes along its process row, each
+// rank forms its share of the product and the shares are summed down the process column
+// onto block row k. One message each way per block, as in the untransposed sweep.
+template <scalar T>
+void sweep_transposed(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part, op how) {
+  const auto& grid = lu.grid();
+  const auto& rows = lu.layout().rows;
+  const auto& cols = lu.layout().cols;
+  const int myrow = grid.myrow(), mycol = grid.mycol();
+  const index_t mloc = lu.local_rows(), nrhs = b.local_cols();
+  const index_t blocks = rows.block_count();
+  const bool upper = part == triangle::upper;
+  std::vector<T> diag, column, partial;
+  for (index_t s = 0; s < blocks; ++s) {
+    const index_t k = upper ? s : blocks - 1 - s;
+    const index_t j0 = rows.block_start(k), jb = rows.block_size(k);
+    const int pr = rows.block_owner(k), pc = cols.block_owner(k);
+    const index_t lrk = rows.local_begin(myrow, j0), lck = cols.local_begin(mycol, j0);
+
+    const index_t first = upper ? 0 : rows.local_begin(myrow, j0 + jb);
+    const index_t count = upper ? lrk : mloc - first;
+    column.resize(static_cast<std::size_t>(count * jb));
+    if (mycol == pc) copy_block(count, jb, lu.at(first, lck), lu.ld(), column.data(), count);
+    comm::broadcast(grid.row(), column.data(), count * jb, pc);
+    partial.assign(static_cast<std::size_t>(jb * nrhs), T(0));
+    blas::gemm(how, op::none, jb, nrhs, count, T(1), column.data(), count, b.at(first, 0), b.ld(),
+               T(0), partial.data(), jb);
+    comm::sum(grid.col(), partial.data(), jb * nrhs);
+    if (myrow != pr) continue;
+    for (index_t c = 0; c < nrhs; ++c)
+      for (index_t i = 0; i < jb; ++i) *b.at(lrk + i, c) -= partial[i + c * jb];
+    diag.resize(static_cast<std::size_t>(jb * jb));
+    if (mycol == pc) copy_block(jb, jb, lu.at(lrk, lck), lu.ld(), diag.data(), jb);
+    comm::broadcast(grid.row(), diag.data(), jb * jb, pc);
+    blas::trsm_left(part, upper ? diagonal::non_unit : diagonal::unit, how, jb, nrhs, T(1),
+                    diag.data(), jb, b.at(lrk, 0), b.ld());
+  }
+}
+
 }  // namespace
 
 template <scalar T>
-void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b) {
+void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b,
+           solve_with with) {
   if (&b.grid() != &lu.grid() || b.rows() != lu.rows() || b.block() != lu.block() ||
       static_cast<index_t>(pivots.size()) != lu.rows())
     throw error(error_kind::usage,
                 "solve: right-hand sides must match the factors' order, grid and block size");
   const detail::column_range all[] = {{0, b.local_cols()}};
   detail::interchange_buffers<T> buffers;
-  detail::interchange_rows(b, 0, pivots, all, buffers);
-  sweep(lu, b, triangle::lower);
-  sweep(lu, b, triangle::upper);
+  const auto& rows = b.layout().rows;
+  if (with == solve_with::a) {
+    // P A = L U: x = inv(U) inv(L) P b.
+    detail::interchange_rows(b, 0, pivots, all, buffers);
+    sweep(lu, b, triangle::lower);
+    sweep(lu, b, triangle::upper);
+    return;
+  }
+  // A^T = U^T L^T P: x = P^T inv(L^T) inv(U^T) b, and alike with conjugates.
+  const op how = with == solve_with::transpose ? op::transpose : op::adjoint;
+  sweep_transposed(lu, b, triangle::upper, how);
+  sweep_transposed(lu, b, triangle::lower, how);
+  detail::interchange_rows(b, detail::plan_interchanges(rows, b.grid().myrow(), 0, pivots, true),
+                           all, buffers);
 }
 
-#define INSTANTIATE(T) \
-  template void solve<T>(const dist_matrix<T>&, std::span<const index_t>, dist_matrix<T>&);
+#define INSTANTIATE(T)                                                                     \
+  template void solve<T>(const dist_matrix<T>&, std::span<const index_t>, dist_matrix<T>&, \
+                         solve_with);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE
 

@@ -10,7 +10,10 @@
 namespace gridlu::blas {
 namespace {
 
-CBLAS_TRANSPOSE to_cblas(op o) { return o == op::none ? CblasNoTrans : CblasTrans; }
+CBLAS_TRANSPOSE to_cblas(op o) {
+  return o == op::none ? CblasNoTrans : o == op::transpose ? CblasTrans : CblasConjTrans;
+}
+char to_lapack(op o) { return o == op::none ? 'N' : o == op::transpose ? 'T' : 'C'; }
 CBLAS_UPLO to_cblas(triangle t) { return t == triangle::lower ? CblasLower : CblasUpper; }
 CBLAS_DIAG to_cblas(diagonal d) { return d == diagonal::unit ? CblasUnit : CblasNonUnit; }
 blasint bi(index_t v) { return static_cast<blasint>(v); }
@@ -53,31 +56,31 @@ void gemm<cd>(op opa, op opb, index_t m, index_t n, index_t k, cd alpha, const c
 }
 
 template <>
-void trsm_left<float>(triangle uplo, diagonal diag, index_t m, index_t n, float alpha,
+void trsm_left<float>(triangle uplo, diagonal diag, op how, index_t m, index_t n, float alpha,
                       const float* a, index_t lda, float* b, index_t ldb) {
   if (empty(m, n)) return;
-  cblas_strsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m), bi(n),
+  cblas_strsm(CblasColMajor, CblasLeft, to_cblas(uplo), to_cblas(how), to_cblas(diag), bi(m), bi(n),
               alpha, a, ld(lda), b, ld(ldb));
 }
 template <>
-void trsm_left<double>(triangle uplo, diagonal diag, index_t m, index_t n, double alpha,
+void trsm_left<double>(triangle uplo, diagonal diag, op how, index_t m, index_t n, double alpha,
                        const double* a, index_t lda, double* b, index_t ldb) {
   if (empty(m, n)) return;
-  cblas_dtrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m), bi(n),
+  cblas_dtrsm(CblasColMajor, CblasLeft, to_cblas(uplo), to_cblas(how), to_cblas(diag), bi(m), bi(n),
               alpha, a, ld(lda), b, ld(ldb));
 }
 template <>
-void trsm_left<cf>(triangle uplo, diagonal diag, index_t m, index_t n, cf alpha, const cf* a,
-                   index_t lda, cf* b, index_t ldb) {
+void trsm_left<cf>(triangle uplo, diagonal diag, op how, index_t m, index_t n, cf alpha,
+                   const cf* a, index_t lda, cf* b, index_t ldb) {
   if (empty(m, n)) return;
-  cblas_ctrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m), bi(n),
+  cblas_ctrsm(CblasColMajor, CblasLeft, to_cblas(uplo), to_cblas(how), to_cblas(diag), bi(m), bi(n),
               &alpha, a, ld(lda), b, ld(ldb));
 }
 template <>
-void trsm_left<cd>(triangle uplo, diagonal diag, index_t m, index_t n, cd alpha, const cd* a,
-                   index_t lda, cd* b, index_t ldb) {
+void trsm_left<cd>(triangle uplo, diagonal diag, op how, index_t m, index_t n, cd alpha,
+                   const cd* a, index_t lda, cd* b, index_t ldb) {
   if (empty(m, n)) return;
-  cblas_ztrsm(CblasColMajor, CblasLeft, to_cblas(uplo), CblasNoTrans, to_cblas(diag), bi(m), bi(n),
+  cblas_ztrsm(CblasColMajor, CblasLeft, to_cblas(uplo), to_cblas(how), to_cblas(diag), bi(m), bi(n),
               &alpha, a, ld(lda), b, ld(ldb));
 }
 
@@ -142,6 +145,33 @@ template <>
 int lapack_getrf<cd>(index_t m, index_t n, cd* a, index_t lda, std::int32_t* ipiv) {
   return LAPACKE_zgetrf(LAPACK_COL_MAJOR, bi(m), bi(n), reinterpret_cast<lapack_complex_double*>(a),
                         ld(lda), ipiv);
+}
+
+template <>
+int lapack_getrs<float>(op how, index_t n, index_t nrhs, const float* lu, index_t lda,
+                        const std::int32_t* ipiv, float* b, index_t ldb) {
+  return LAPACKE_sgetrs(LAPACK_COL_MAJOR, to_lapack(how), bi(n), bi(nrhs), lu, ld(lda), ipiv, b,
+                        ld(ldb));
+}
+template <>
+int lapack_getrs<double>(op how, index_t n, index_t nrhs, const double* lu, index_t lda,
+                         const std::int32_t* ipiv, double* b, index_t ldb) {
+  return LAPACKE_dgetrs(LAPACK_COL_MAJOR, to_lapack(how), bi(n), bi(nrhs), lu, ld(lda), ipiv, b,
+                        ld(ldb));
+}
+template <>
+int lapack_getrs<cf>(op how, index_t n, index_t nrhs, const cf* lu, index_t lda,
+                     const std::int32_t* ipiv, cf* b, index_t ldb) {
+  return LAPACKE_cgetrs(LAPACK_COL_MAJOR, to_lapack(how), bi(n), bi(nrhs),
+                        reinterpret_cast<const lapack_complex_float*>(lu), ld(lda), ipiv,
+                        reinterpret_cast<lapack_complex_float*>(b), ld(ldb));
+}
+template <>
+int lapack_getrs<cd>(op how, index_t n, index_t nrhs, const cd* lu, index_t lda,
+                     const std::int32_t* ipiv, cd* b, index_t ldb) {
+  return LAPACKE_zgetrs(LAPACK_COL_MAJOR, to_lapack(how), bi(n), bi(nrhs),
+                        reinterpret_cast<const lapack_complex_double*>(lu), ld(lda), ipiv,
+                        reinterpret_cast<lapack_complex_double*>(b), ld(ldb));
 }
 
 std::string library_version() { return openblas_get_config(); }

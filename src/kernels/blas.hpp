@@ -10,7 +10,7 @@
 
 namespace gridlu::blas {
 
-enum class op { none, transpose };
+enum class op { none, transpose, adjoint };  // adjoint: conjugate transpose (transpose if real)
 enum class triangle { lower, upper };
 enum class diagonal { unit, non_unit };
 
@@ -19,10 +19,10 @@ template <scalar T>
 void gemm(op opa, op opb, index_t m, index_t n, index_t k, T alpha, const T* a, index_t lda,
           const T* b, index_t ldb, T beta, T* c, index_t ldc);
 
-// B = alpha inv(A) B with A an m x m triangle (left side, no transpose).
+// B = alpha inv(op(A)) B with A an m x m triangle (left side).
 template <scalar T>
-void trsm_left(triangle uplo, diagonal diag, index_t m, index_t n, T alpha, const T* a, index_t lda,
-               T* b, index_t ldb);
+void trsm_left(triangle uplo, diagonal diag, op how, index_t m, index_t n, T alpha, const T* a,
+               index_t lda, T* b, index_t ldb);
 
 // A += alpha x y^T (unconjugated for complex).
 template <scalar T>
@@ -37,6 +37,11 @@ void scale(index_t n, T alpha, T* x);
 // indices; returns LAPACK's info.
 template <scalar T>
 int lapack_getrf(index_t m, index_t n, T* a, index_t lda, std::int32_t* ipiv);
+
+// LAPACK's solve with getrf's factors: B = inv(op(A)) B. The reference in tests.
+template <scalar T>
+int lapack_getrs(op how, index_t n, index_t nrhs, const T* lu, index_t lda,
+                 const std::int32_t* ipiv, T* b, index_t ldb);
 
 // The BLAS library's build description.
 std::string library_version();

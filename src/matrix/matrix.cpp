@@ -149,13 +149,16 @@ std::optional<std::pair<index_t, index_t>> first_nonfinite(const dist_matrix<T>&
 }
 
 template <scalar T>
-std::uint64_t content_checksum(const dist_matrix<T>& a) {
+std::uint64_t content_checksum(const dist_matrix<T>& a, bool transposed) {
   std::uint64_t sum = 0;
   const auto& layout = a.layout();
   for (index_t lj = 0; lj < a.local_cols(); ++lj) {
     const index_t j = layout.cols.global(a.grid().mycol(), lj);
-    for (index_t li = 0; li < a.local_rows(); ++li)
-      sum ^= detail::entry_hash(layout.rows.global(a.grid().myrow(), li), j, *a.at(li, lj));
+    for (index_t li = 0; li < a.local_rows(); ++li) {
+      const index_t i = layout.rows.global(a.grid().myrow(), li);
+      sum ^= transposed ? detail::entry_hash(j, i, *a.at(li, lj))
+                        : detail::entry_hash(i, j, *a.at(li, lj));
+    }
   }
   comm::bit_xor(a.grid().all(), &sum, 1);
   return sum;
@@ -164,7 +167,7 @@ std::uint64_t content_checksum(const dist_matrix<T>& a) {
 #define INSTANTIATE(T)                                                                           \
   template class dist_matrix<T>;                                                                 \
   template std::optional<std::pair<index_t, index_t>> first_nonfinite<T>(const dist_matrix<T>&); \
-  template std::uint64_t content_checksum<T>(const dist_matrix<T>&);
+  template std::uint64_t content_checksum<T>(const dist_matrix<T>&, bool);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE
 

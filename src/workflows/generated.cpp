@@ -8,6 +8,7 @@
 #include "gridlu/version.hpp"
 #include "io/staged.hpp"
 #include "kernels/blas.hpp"
+#include "workflows/numerical.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
@@ -80,15 +81,18 @@ demo_result demo_typed(const process_grid& grid, const demo_options& o) {
   lu_options lo;
   lo.lookahead = o.lookahead;
   r.factor_seconds = timed(grid, [&] { lu = factor(a, lo); });
-  r.first_zero_pivot = lu.first_zero_pivot;
+  refuse_singular(lu);
   r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_seconds * 1e-9;
   r.solve_seconds = timed(grid, [&] { solve(a, lu.pivots, x); });
-  // The factors overwrote A; regenerate it instead of keeping a second copy.
+  refuse_nonfinite_solution(x, false);
   r.check_seconds = timed(grid, [&] {
+    const auto from_factors = measure_factors(a, lu.pivots, solve_with::a);
+    // The factors overwrote A; regenerate it instead of keeping a second copy.
     a.fill(a_entry);
-    r.backward_errors = backward_errors(a, x, b);
+    const auto figures = measure_matrix(a);
+    const auto errors = backward_errors(a, figures, x, b, residual(a, x, b));
+    r.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
   });
-  r.threshold = 10.0 * static_cast<double>(o.n) * epsilon<T>();
   return r;
 }
 

@@ -34,7 +34,8 @@ job job_from_json(const std::string& text, const std::string& where) {
     member = it->template get<M>();
   });
   if (j.id.empty() || j.n < 1 || j.nrhs < 1 || j.block < 1 || j.lookahead < 0 || j.input.empty() ||
-      j.output.empty() || !(j.checkpoint_every >= 0))
+      j.output.empty() || !(j.checkpoint_every >= 0) || j.require_digits < 0 ||
+      (j.solve_with != "A" && j.solve_with != "A^T" && j.solve_with != "A^H"))
     throw damaged("it records an impossible job");
   return j;
 }
@@ -75,7 +76,8 @@ std::string new_job_id() {
 
 bool same_work(const job& a, const job& b) {
   return a.input == b.input && a.matrix_dataset == b.matrix_dataset && a.rhs_file == b.rhs_file &&
-         a.rhs_dataset == b.rhs_dataset && a.column_major == b.column_major && a.output == b.output;
+         a.rhs_dataset == b.rhs_dataset && a.column_major == b.column_major &&
+         a.solve_with == b.solve_with && a.output == b.output;
 }
 
 }  // namespace gridlu::workflows

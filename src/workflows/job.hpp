@@ -17,7 +17,8 @@ struct job {
   std::string id;  // random, made when the job is first started; tags its state and marker
   // Inputs. Paths are absolute: a later run may start in another directory.
   std::string input, matrix_dataset = "A", rhs_file, rhs_dataset = "B", factors;
-  bool column_major = false;  // A's dataset holds the transpose
+  bool column_major = false;     // A's dataset holds the transpose
+  std::string solve_with = "A";  // the system solved: "A", "A^T" or "A^H" (times X = B)
   // What the inputs were when the job started.
   std::string type;  // A's element type, the one the system is solved in
   std::int64_t n = 0, nrhs = 0;
@@ -26,8 +27,10 @@ struct job {
   std::string a_checksum, b_checksum;  // io::checksum_text of content_checksum
   // Options.
   std::int64_t block = 0, lookahead = 0;
-  bool force = false;           // outputs may replace existing files
-  double checkpoint_every = 0;  // seconds; 0: only when stopping
+  bool force = false;               // outputs may replace existing files
+  double checkpoint_every = 0;      // seconds; 0: only when stopping
+  bool refine = false;              // iterative refinement of X in the working precision
+  std::int64_t require_digits = 0;  // fewer trusted digits fail the run (X is still written)
   // Outputs.
   std::string output, save_factors, checkpoint_dir;
 };
@@ -43,6 +46,7 @@ void for_each_field(J& j, F&& f) {
   f("rhs_dataset", j.rhs_dataset);
   f("factors", j.factors);
   f("column_major", j.column_major);
+  f("solve_with", j.solve_with);
   f("type", j.type);
   f("n", j.n);
   f("nrhs", j.nrhs);
@@ -56,6 +60,8 @@ void for_each_field(J& j, F&& f) {
   f("lookahead", j.lookahead);
   f("force", j.force);
   f("checkpoint_every_seconds", j.checkpoint_every);
+  f("refine", j.refine);
+  f("require_digits", j.require_digits);
   f("output", j.output);
   f("save_factors", j.save_factors);
   f("checkpoint_dir", j.checkpoint_dir);

@@ -19,20 +19,26 @@ nlohmann::json phases_json(const lu_phases& p) {
           {"wait", p.wait}};
 }
 
-// The largest, NaN if any is: a NaN backward error must not look like a good one.
-double worst(const std::vector<double>& values) {
-  double w = 0;
-  for (const double v : values) {
-    if (std::isnan(v)) return v;
-    w = std::max(w, v);
-  }
-  return w;
+// The trust figures under the same keys in every report. JSON has no infinity or NaN:
+// those are written as null.
+nlohmann::json trust_json(const trust_report& t) {
+  return {{"unit_roundoff", t.unit_roundoff},
+          {"normwise_backward_error", t.worst_normwise()},
+          {"normwise_backward_errors", t.backward.normwise},
+          {"componentwise_backward_error", t.worst_componentwise()},
+          {"componentwise_backward_errors", t.backward.componentwise},
+          {"condition_estimate", t.condition_1},
+          {"condition_estimate_inf", t.condition_inf},
+          {"forward_error_bound", t.worst_forward_bound()},
+          {"forward_error_bounds", t.forward_bounds},
+          {"growth_factor", t.growth},
+          {"smallest_pivot", t.smallest_pivot},
+          {"trusted_digits", t.trusted_digits},
+          {"flags", t.flags},
+          {"flag_reasons", t.reasons}};
 }
 
 }  // namespace
-
-double solve_result::worst_backward_error() const { return worst(backward_errors); }
-double demo_result::worst_backward_error() const { return worst(backward_errors); }
 
 nlohmann::json solve_result::json() const {
   nlohmann::json j = {{"command", "solve"},
@@ -66,10 +72,12 @@ nlohmann::json solve_result::json() const {
     j["status"] = "stopped";
     return j;
   }
-  j.update({{"backward_error", worst_backward_error()},
-            {"backward_errors", backward_errors},
-            {"threshold", threshold},
-            {"status", accepted() ? "solved" : "suspect"}});
+  j.update(trust_json(trust));
+  if (refined)
+    j["refinement"] = {{"iterations", refined->iterations},
+                       {"normwise_backward_errors", refined->normwise},
+                       {"componentwise_backward_errors", refined->componentwise}};
+  j["status"] = "solved";
   return j;
 }
 
@@ -98,20 +106,20 @@ nlohmann::json read_bench_result::json(const read_bench_options& o) const {
 }
 
 nlohmann::json demo_result::json(const demo_options& o) const {
-  return {{"command", "demo"},
-          {"n", o.n},
-          {"nrhs", o.nrhs},
-          {"block", o.block},
-          {"type", o.type},
-          {"times",
-           {{"generate", generate_seconds},
-            {"factor", factor_seconds},
-            {"solve", solve_seconds},
-            {"check", check_seconds}}},
-          {"gflops", gflops},
-          {"backward_error", worst_backward_error()},
-          {"backward_errors", backward_errors},
-          {"status", accepted() ? "solved" : "inaccurate"}};
+  nlohmann::json j = {{"command", "demo"},
+                      {"n", o.n},
+                      {"nrhs", o.nrhs},
+                      {"block", o.block},
+                      {"type", o.type},
+                      {"times",
+                       {{"generate", generate_seconds},
+                        {"factor", factor_seconds},
+                        {"solve", solve_seconds},
+                        {"check", check_seconds}}},
+                      {"gflops", gflops},
+                      {"status", "solved"}};
+  j.update(trust_json(trust));
+  return j;
 }
 
 }  // namespace gridlu::workflows

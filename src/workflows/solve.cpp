@@ -14,6 +14,7 @@
 #include "gridlu/version.hpp"
 #include "io/staged.hpp"
 #include "workflows/budget.hpp"
+#include "workflows/numerical.hpp"
 #include "workflows/stop.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
@@ -33,6 +34,12 @@ double element_bytes(const std::string& type) {
   return bytes;
 }
 
+solve_with system_of(const job& j) {
+  if (j.solve_with == "A^T") return solve_with::transpose;
+  if (j.solve_with == "A^H") return solve_with::adjoint;
+  return solve_with::a;
+}
+
 std::string text_attribute(const io::file& f, const std::string& key) {
   return f.get_attribute_as<std::string>("/", key).value_or("");
 }
@@ -49,6 +56,8 @@ void check_options(const solve_options& o) {
     throw error(error_kind::usage, "--factors and --save-factors do not go together");
   if (!o.factors.empty() && !o.checkpoint_dir.empty())
     throw error(error_kind::usage, "--factors needs no factorization and so no --checkpoint");
+  if (o.solve_with != "A" && o.solve_with != "A^T" && o.solve_with != "A^H")
+    throw error(error_kind::usage, "the system must be A, A^T or A^H, not " + o.solve_with);
   if ((o.checkpoint_every > 0 || o.stop_after > 0) && o.checkpoint_dir.empty())
     throw error(error_kind::usage, "--checkpoint-every and --stop-after need --checkpoint DIR");
 }
@@ -62,6 +71,9 @@ job job_of(const solve_options& o) {
   j.rhs_dataset = o.rhs_dataset;
   j.factors = absolute(o.factors);
   j.column_major = o.column_major;
+  j.solve_with = o.solve_with;
+  j.refine = o.refine;
+  j.require_digits = o.require_digits;
   j.block = o.block;
   j.lookahead = o.lookahead;
   j.force = o.force;
@@ -390,7 +402,6 @@ public:
 
   solve_result operator()() {
     const double start = comm::wtime();
-    r_.threshold = 10.0 * static_cast<double>(j_.n) * epsilon<T>();
     std::optional<io::file> factors;
     if (!j_.factors.empty()) factors.emplace(grid_, j_.factors, io::file::mode::read);
     if (factors) check_factors_file(*factors, j_);
@@ -407,7 +418,7 @@ public:
         r_.total_seconds = comm::wtime() - start;
         return r_;
       }
-      refuse_singular();
+      refuse_singular(lu_);
       if (!j_.save_factors.empty())
         r_.write_seconds += timed(grid_, [&] { write_factors(grid_, j_, a_, lu_.pivots); });
     }
@@ -450,46 +461,59 @@ private:
     if (ck_) ck_->dir.record_job(to_json(j_).dump(2) + "\n");
   }
 
-  void refuse_singular() const {
-    if (lu_.first_zero_pivot >= 0)
-      throw error(error_kind::singular, "A is exactly singular: the pivot of column " +
-                                            std::to_string(lu_.first_zero_pivot) +
-                                            " (0-based) is zero; no solution written");
-  }
-
   dist_matrix<T> solve_and_check(const io::file* factors) {
+    const solve_with with = system_of(j_);
     dist_matrix<T> x(grid_, j_.n, j_.nrhs, j_.block);
     std::copy_n(b_.data(), b_.ld() * b_.local_cols(), x.data());
-    r_.solve_seconds = timed(grid_, [&] { solve(a_, lu_.pivots, x); });
-    // The factors overwrote A: read it again into the same storage for the residual.
+    r_.solve_seconds = timed(grid_, [&] { solve(a_, lu_.pivots, x, with); });
     r_.check_seconds = timed(grid_, [&] {
-      in_.input.read(j_.matrix_dataset, a_, j_.column_major);
-      if (factors) {
-        refuse_nonfinite(a_, j_.matrix_dataset, j_.input, false, j_.column_major);
-        if (text_attribute(*factors, "a_checksum") != io::checksum_text(content_checksum(a_)))
-          throw error(error_kind::input, "the factors in " + j_.factors + " do not belong to " +
-                                             j_.input + ": its matrix differs from theirs");
+      const auto from_factors = measure_factors(a_, lu_.pivots, with);
+      // Refinement needs the factors and the matrix at once; otherwise the matrix is read
+      // again into the factors' storage.
+      std::optional<dist_matrix<T>> kept;
+      if (j_.refine) kept.emplace(grid_, j_.n, j_.n, j_.block);
+      dist_matrix<T>& m = kept ? *kept : a_;
+      read_system_matrix(m, factors);
+      const auto figures = measure_matrix(m);
+      solution_figures errors;
+      if (j_.refine) {
+        r_.refined = refine(m, figures, a_, lu_.pivots, with, x, b_);
+        errors = r_.refined->final;
+      } else {
+        errors = backward_errors(m, figures, x, b_, residual(m, x, b_));
       }
-      r_.backward_errors = backward_errors(a_, x, b_);
+      refuse_nonfinite_solution(x, in_.rhs_1d());
+      r_.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
     });
     return x;
   }
 
+  // The matrix of the system solved, op(A), from A's file: A^T is A read the other way.
+  void read_system_matrix(dist_matrix<T>& m, const io::file* factors) {
+    const bool flipped = system_of(j_) != solve_with::a;
+    in_.input.read(j_.matrix_dataset, m, j_.column_major != flipped);
+    if (factors) {
+      refuse_nonfinite(m, j_.matrix_dataset, j_.input, false, j_.column_major != flipped);
+      if (text_attribute(*factors, "a_checksum") != io::checksum_text(content_checksum(m, flipped)))
+        throw error(error_kind::input, "the factors in " + j_.factors + " do not belong to " +
+                                           j_.input + ": its matrix differs from theirs");
+    }
+    if constexpr (scalar_traits<T>::is_complex)
+      if (system_of(j_) == solve_with::adjoint)
+        for (index_t i = 0; i < m.ld() * m.local_cols(); ++i) m.data()[i] = std::conj(m.data()[i]);
+  }
+
   void write_solution(const dist_matrix<T>& x) {
     io::staged_output out(grid_, j_.output, j_.force ? io::existing::replace : io::existing::refuse,
-                          x.bytes() + 8.0 * static_cast<double>(j_.nrhs));
+                          x.bytes() + 3 * 8.0 * static_cast<double>(j_.nrhs));
     {
       io::file f(grid_, out.path(), io::file::mode::create);
       f.write("X", x, in_.rhs_1d());
-      // Per right-hand side figures go in a dataset: attributes have a size limit.
-      dist_matrix<double> errors(grid_, j_.nrhs, 1, j_.block);
-      errors.fill([&](index_t i, index_t) { return r_.backward_errors[i]; });
-      f.write("backward_errors", errors, true);
+      write_figures(f);
       write_attributes(f, "/", j_);
       f.set_attribute("/", "gridlu_kind", std::string("solution"));
       f.set_attribute("/", "gridlu_format", format_version);
       f.set_attribute("/", "gridlu_version", std::string(version));
-      f.set_attribute("/X", "backward_error", r_.worst_backward_error());
       f.set_attribute("/X", "factor_seconds", r_.factor_seconds);
       f.set_attribute("/X", "gflops", r_.gflops);
       f.set_attribute("/X", "grid",
@@ -498,6 +522,35 @@ private:
       f.close();
     }
     out.commit();
+  }
+
+  // The trust figures beside X: per right-hand side in datasets (attributes have a size
+  // limit), the worst and the verdict as attributes of X.
+  void write_figures(io::file& f) const {
+    const auto& t = r_.trust;
+    const std::pair<const char*, const std::vector<double>*> lists[] = {
+        {"normwise_backward_errors", &t.backward.normwise},
+        {"componentwise_backward_errors", &t.backward.componentwise},
+        {"forward_error_bounds", &t.forward_bounds}};
+    for (const auto& [name, values] : lists) {
+      dist_matrix<double> column(grid_, j_.nrhs, 1, j_.block);
+      column.fill([&](index_t i, index_t) { return (*values)[i]; });
+      f.write(name, column, true);
+    }
+    std::string flags;
+    for (const auto& flag : t.flags) flags += (flags.empty() ? "" : ",") + flag;
+    const std::pair<const char*, io::attribute> attributes[] = {
+        {"trusted_digits", std::int64_t{t.trusted_digits}},
+        {"flags", flags},
+        {"unit_roundoff", t.unit_roundoff},
+        {"normwise_backward_error", t.worst_normwise()},
+        {"componentwise_backward_error", t.worst_componentwise()},
+        {"forward_error_bound", t.worst_forward_bound()},
+        {"condition_estimate", t.condition_1},
+        {"condition_estimate_inf", t.condition_inf},
+        {"growth_factor", t.growth},
+        {"smallest_pivot", t.smallest_pivot}};
+    for (const auto& [key, value] : attributes) f.set_attribute("/X", key, value);
   }
 
   // X is safely written: the job is complete and its working state can go.
@@ -544,9 +597,10 @@ double available_memory() {
 void require_memory(const process_grid& grid, const job& j) {
   const int sharing = comm::ranks_on_node(grid.all());
   const double n = static_cast<double>(j.n), entry = element_bytes(j.type);
-  // A, B and X shared out, and per rank the panels in flight and the I/O slabs.
+  // A (twice to refine: the factors and the matrix), B and X shared out, and per rank
+  // the panels in flight and the I/O slabs.
   const double need =
-      entry * ((n * n + 3.0 * n * static_cast<double>(j.nrhs)) / grid.size() +
+      entry * (((j.refine ? 2 : 1) * n * n + 3.0 * n * static_cast<double>(j.nrhs)) / grid.size() +
                static_cast<double>(j.lookahead + 4) * n * static_cast<double>(j.block));
   comm::together(grid.all(), [&] {
     const double share = available_memory() / sharing;
@@ -728,6 +782,7 @@ solve_result resume_dir(const process_grid& grid, const resume_options& ro,
   if (ro.lookahead >= 0) j.lookahead = ro.lookahead;
   if (!ro.output.empty()) j.output = absolute(ro.output);
   if (ro.checkpoint_every >= 0) j.checkpoint_every = ro.checkpoint_every;
+  if (ro.require_digits >= 0) j.require_digits = ro.require_digits;
   j.force = j.force || ro.force;
   j.checkpoint_dir = dir.path();
   if (marks_completion(dir.completion(), j)) return finish_again(grid, j, run, dir);

@@ -4,9 +4,11 @@
 
 #include <cstdint>
 #include <functional>
+#include <optional>
 #include <string>
 #include <vector>
 
+#include "gridlu/accuracy.hpp"
 #include "gridlu/grid.hpp"
 #include "gridlu/lu.hpp"
 #include "workflows/job.hpp"
@@ -76,15 +78,12 @@ struct demo_options {
 struct demo_result {
   double generate_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0;
   double gflops = 0;
-  std::vector<double> backward_errors;  // one per right-hand side
-  double threshold = 0;                 // acceptable backward error for the type
-  index_t first_zero_pivot = -1;
-  double worst_backward_error() const;
-  bool accepted() const { return first_zero_pivot < 0 && worst_backward_error() <= threshold; }
+  trust_report trust;
   nlohmann::json json(const demo_options& asked) const;
 };
 
-// Generates a random system A X = B, factors, solves and checks the backward error.
+// Generates a random system A X = B, factors, solves and measures how far X can be
+// trusted. Throws gridlu::error (numerical) for an exactly singular A or a non-finite X.
 demo_result demo(const process_grid& grid, const demo_options& options);
 
 // Progress of a factorization: fraction of its flops done, seconds so far, GFLOP/s so far.
@@ -99,6 +98,9 @@ struct solve_options {
   index_t block = default_block;
   int lookahead = default_lookahead;
   bool column_major = false;          // the file holds the transpose of A
+  std::string solve_with = "A";       // "A", "A^T" or "A^H": the system's matrix
+  bool refine = false;                // iterative refinement in the working precision
+  std::int64_t require_digits = 0;    // recorded in the job; the command line judges it
   bool force = false;                 // replace existing outputs; discard another job's checkpoint
   std::string save_factors, factors;  // paths, or empty
   std::string report;                 // this run's report: checked with the other outputs
@@ -124,8 +126,8 @@ struct solve_result {
          write_seconds = 0, total_seconds = 0;
   double gflops = 0;
   lu_phases phases;  // of this run's factorization: the largest over the ranks, per phase
-  std::vector<double> backward_errors;
-  double threshold = 0;  // accepted backward error for the type: 10 n eps
+  trust_report trust;
+  std::optional<refinement> refined;  // with --refine
   // Stopped early (by a signal or the time budget) with a checkpoint.
   bool stopped = false;
   // The time budget ran out at this run's first block step: the fixed costs of a run
@@ -137,25 +139,24 @@ struct solve_result {
   double factor_seconds_total = 0;  // over all runs of a checkpointed job
   std::int64_t restarts = 0, checkpoints = 0;
 
-  double worst_backward_error() const;
-  bool accepted() const { return worst_backward_error() <= threshold; }
   nlohmann::json json() const;  // the report's figures
 };
 
-// Reads A and B from HDF5, factors (or loads saved factors), solves, checks the backward
-// error against A re-read from its file, writes X. Every output is checked against every
-// input before any work; all are written whole or not at all. Throws gridlu::error,
-// agreed by all ranks.
+// Reads A and B from HDF5, factors (or loads saved factors), solves, measures how far X
+// can be trusted (against A re-read from its file), writes X; a non-finite X is refused. Every
+// output is checked against every input before any work; all are written whole or not at all.
+// Throws gridlu::error, agreed by all ranks.
 solve_result solve_file(const process_grid& grid, const solve_options& options,
                         const run_settings& run);
 
 struct resume_options {
   std::string dir;
-  index_t block = 0;             // 0: the job's own
-  int lookahead = -1;            // negative: the job's own
-  std::string output;            // empty: the job's own
-  bool force = false;            // replace existing outputs even if the job did not ask to
-  double checkpoint_every = -1;  // seconds; negative: the job's own
+  index_t block = 0;                 // 0: the job's own
+  int lookahead = -1;                // negative: the job's own
+  std::string output;                // empty: the job's own
+  bool force = false;                // replace existing outputs even if the job did not ask to
+  double checkpoint_every = -1;      // seconds; negative: the job's own
+  std::int64_t require_digits = -1;  // negative: the job's own
 };
 
 // Continues (or finishes) the checkpointed job in options.dir on this grid, possibly

@@ -1,0 +1,29 @@
+// The two numerical failures every solving workflow refuses before it reports or writes
+// anything: an exactly singular A and a solution that is not finite.
+#pragma once
+
+#include <string>
+
+#include "gridlu/lu.hpp"
+
+namespace gridlu::workflows {
+
+inline void refuse_singular(const lu_result& lu) {
+  if (lu.first_zero_pivot >= 0)
+    throw error(error_kind::numerical, "A is exactly singular: the pivot of column " +
+                                           std::to_string(lu.first_zero_pivot) +
+                                           " (0-based) is zero; no solution written");
+}
+
+// X[i, j] (X[i] when the right-hand side is a vector), 0-based.
+template <scalar T>
+void refuse_nonfinite_solution(const dist_matrix<T>& x, bool one_d) {
+  if (const auto at = first_nonfinite(x))
+    throw error(error_kind::numerical,
+                "X[" + std::to_string(at->first) +
+                    (one_d ? "" : ", " + std::to_string(at->second)) +
+                    "] is not finite (NaN or Inf): the solve overflowed, A being numerically "
+                    "singular or badly scaled; no solution written");
+}
+
+}  // namespace gridlu::workflows
