@@ -474,32 +474,57 @@ subcommand add_resume(CLI::App& app, double started) {
           }};
 }
 
+// A subcommand of `generate`: the options every kind takes.
+CLI::App* add_generate_kind(CLI::App* generate, const std::string& name, const std::string& what,
+                            workflows::generate_options& o, common_options& c) {
+  auto* cmd = generate->add_subcommand(name, what);
+  cmd->add_option("--n", o.n, "number of unknowns")->required();
+  cmd->add_option("--out", o.output, "HDF5 file to write")->required();
+  cmd->add_option("--type", o.type, "float32, float64, complex64 or complex128")
+      ->capture_default_str();
+  cmd->add_flag("--force", o.force, "replace the file if it exists");
+  add_common(cmd, c);
+  return cmd;
+}
+
+void print_generated(const workflows::generate_options& o) {
+  const auto n = static_cast<long long>(o.n);
+  if (o.kind)
+    std::printf("gridlu generate: %s %s system, n = %lld, B = A times ones -> %s\n",
+                std::string(name_of(*o.kind)).c_str(), o.type.c_str(), n, o.output.c_str());
+  else
+    std::printf(
+        "gridlu generate: random %s system, n = %lld, %lld right-hand side(s), seed %llu -> %s\n",
+        o.type.c_str(), n, static_cast<long long>(o.nrhs), static_cast<unsigned long long>(o.seed),
+        o.output.c_str());
+}
+
 subcommand add_generate(CLI::App& app, double) {
   auto c = std::make_shared<common_options>();
   auto o = std::make_shared<workflows::generate_options>();
   auto* cmd = app.add_subcommand("generate", "write a test system to an HDF5 file");
   cmd->require_subcommand(1);
-  auto* random = cmd->add_subcommand(
-      "random", "random A and B, entries uniform in [-1, 1), the same on any number of ranks");
-  random->add_option("--n", o->n, "number of unknowns")->required();
-  random->add_option("--out", o->output, "HDF5 file to write")->required();
+  auto* random = add_generate_kind(
+      cmd, "random", "random A and B, entries uniform in [-1, 1), the same on any number of ranks",
+      *o, *c);
   random->add_option("--rhs", o->nrhs, "number of right-hand sides")->capture_default_str();
-  random->add_option("--type", o->type, "float32, float64, complex64 or complex128")
-      ->capture_default_str();
   random->add_option("--seed", o->seed, "seed")->capture_default_str();
-  random->add_flag("--force", o->force, "replace the file if it exists");
-  add_common(random, *c);
-  random->footer(
-      "Example:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5");
+  const std::pair<classical, const char*> kinds[] = {
+      {classical::wilkinson, "Wilkinson's matrix: growth 2^(n-1) under partial pivoting"},
+      {classical::hilbert, "the Hilbert matrix 1/(i+j+1): very ill-conditioned, known determinant"},
+      {classical::frank, "Frank's upper Hessenberg matrix: determinant 1"},
+      {classical::second_difference, "tridiagonal 2 and -1: determinant n+1, known inverse"}};
+  for (const auto& [kind, what] : kinds)
+    add_generate_kind(cmd, std::string(name_of(kind)), what, *o, *c)
+        ->parse_complete_callback([o, kind = kind] { o->kind = kind; })
+        ->footer("B is A times a vector of ones: the exact solution is all ones.");
+  cmd->footer(
+      "Examples:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5\n"
+      "  mpiexec -n 2 gridlu generate wilkinson --n 40 --out wilkinson.h5");
   return {cmd, [=] {
             const auto grid = make_grid(*c);
             workflows::generate_file(grid, *o);
-            if (grid.rank() == 0)
-              std::printf(
-                  "gridlu generate: random %s system, n = %lld, %lld right-hand side(s), seed "
-                  "%llu -> %s\n",
-                  o->type.c_str(), static_cast<long long>(o->n), static_cast<long long>(o->nrhs),
-                  static_cast<unsigned long long>(o->seed), o->output.c_str());
+            if (grid.rank() == 0) print_generated(*o);
             return 0;
           }};
 }
@@ -607,6 +632,10 @@ int main(int argc, char** argv) {
 
   CLI::App app{"gridlu: dense LU with partial pivoting on a block-cyclic grid of MPI ranks."};
   app.footer(exit_codes_help);
+  // Option errors read like every other error: one line, exit 2.
+  app.failure_message([](const CLI::App*, const CLI::Error& e) {
+    return "gridlu: error: " + std::string(e.what()) + " (see --help)\n";
+  });
   app.require_subcommand(1);
   const subcommand commands[] = {add_bench(app, started),  add_demo(app, started),
                                  add_solve(app, started),  add_generate(app, started),

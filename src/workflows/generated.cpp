@@ -1,5 +1,8 @@
 #include <algorithm>
+#include <complex>
 #include <stdexcept>
+#include <utility>
+#include <vector>
 
 #include "gridlu/accuracy.hpp"
 #include "gridlu/generate.hpp"
@@ -96,13 +99,57 @@ demo_result demo_typed(const process_grid& grid, const demo_options& o) {
   return r;
 }
 
+// Calls f with a value of the element type named `type`, or refuses the name.
+template <class F>
+void with_type(const std::string& type, F&& f) {
+  if (!dispatch_scalar(type, f))
+    throw error(error_kind::usage,
+                "unknown element type '" + type + "' (float32, float64, complex64 or complex128)");
+}
+
 template <class R, class F>
 R by_type(const std::string& type, F&& f) {
   R result;
-  if (!dispatch_scalar(type, [&](auto zero) { result = f(zero); }))
-    throw error(error_kind::usage,
-                "unknown element type '" + type + "' (float32, float64, complex64 or complex128)");
+  with_type(type, [&](auto zero) { result = f(zero); });
   return result;
+}
+
+// Row i of A times the vector of ones, for A of real entries: summed in long double and
+// rounded once, so that ones solves the stored system to B's rounding.
+template <scalar T, class F>
+T times_ones(F&& entry, index_t n, index_t i) {
+  long double sum = 0;
+  for (index_t k = 0; k < n; ++k) sum += std::real(entry(i, k));
+  return T(static_cast<real_t<T>>(sum));
+}
+
+template <scalar T>
+void fill_system(const generate_options& o, dist_matrix<T>& a, dist_matrix<T>& b) {
+  if (!o.kind) {
+    a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
+    b.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); });
+    return;
+  }
+  const auto entry = [&](index_t i, index_t j) { return classical_entry<T>(*o.kind, o.n, i, j); };
+  a.fill(entry);
+  b.fill([&](index_t i, index_t) { return times_ones<T>(entry, o.n, i); });
+}
+
+// What a generated file holds and how to make it again.
+std::vector<std::pair<const char*, io::attribute>> system_attributes(const generate_options& o) {
+  std::vector<std::pair<const char*, io::attribute>> attrs = {
+      {"gridlu_kind", std::string("system")},
+      {"gridlu_format", std::int64_t{1}},
+      {"gridlu_version", std::string(version)},
+      {"generator", std::string(o.kind ? name_of(*o.kind) : "random")}};
+  if (o.kind)
+    attrs.emplace_back("solution", std::string("ones"));
+  else
+    attrs.emplace_back("seed", static_cast<std::int64_t>(o.seed));
+  attrs.emplace_back("n", std::int64_t{o.n});
+  attrs.emplace_back("nrhs", std::int64_t{o.nrhs});
+  attrs.emplace_back("type", o.type);
+  return attrs;
 }
 
 }  // namespace
@@ -147,32 +194,19 @@ void generate_file(const process_grid& grid, const generate_options& o) {
   comm::together(grid.all(), [&] {
     if (grid.rank() == 0) io::check_output_target(o.output, policy);
   });
-  const bool known = dispatch_scalar(o.type, [&]<class T>(T) {
+  with_type(o.type, [&]<class T>(T) {
     dist_matrix<T> a(grid, o.n, o.n, default_block), b(grid, o.n, o.nrhs, default_block);
-    a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
-    b.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); });
+    fill_system(o, a, b);
     io::staged_output out(grid, o.output, policy, a.bytes() + b.bytes());
     {
       io::file f(grid, out.path(), io::file::mode::create);
       f.write("A", a);
       f.write("B", b);
-      const std::pair<const char*, io::attribute> attrs[] = {
-          {"gridlu_kind", std::string("system")},
-          {"gridlu_format", std::int64_t{1}},
-          {"gridlu_version", std::string(version)},
-          {"generator", std::string("random")},
-          {"seed", static_cast<std::int64_t>(o.seed)},
-          {"n", std::int64_t{o.n}},
-          {"nrhs", std::int64_t{o.nrhs}},
-          {"type", o.type}};
-      for (const auto& [key, value] : attrs) f.set_attribute("/", key, value);
+      for (const auto& [key, value] : system_attributes(o)) f.set_attribute("/", key, value);
       f.close();
     }
     out.commit();
   });
-  if (!known)
-    throw error(error_kind::usage, "unknown element type '" + o.type +
-                                       "' (float32, float64, complex64 or complex128)");
 }
 
 }  // namespace gridlu::workflows

@@ -9,6 +9,7 @@
 #include <vector>
 
 #include "gridlu/accuracy.hpp"
+#include "gridlu/generate.hpp"
 #include "gridlu/grid.hpp"
 #include "gridlu/lu.hpp"
 #include "workflows/job.hpp"
@@ -165,6 +166,7 @@ solve_result resume_dir(const process_grid& grid, const resume_options& options,
                         const run_settings& run);
 
 struct generate_options {
+  std::optional<classical> kind;  // nothing: the random system of `seed`
   index_t n = 0, nrhs = 1;
   std::string type = "float64";
   std::uint64_t seed = 1;
@@ -172,7 +174,8 @@ struct generate_options {
   bool force = false;
 };
 
-// Writes the random system of generate_options to an HDF5 file, in parallel.
+// Writes a generated system to an HDF5 file, in parallel: random A and B, or a classical
+// A with every column of B equal to A times ones, so that X is all ones.
 void generate_file(const process_grid& grid, const generate_options& options);
 
 }  // namespace gridlu::workflows

@@ -61,10 +61,14 @@ def check_report(c, path, a, b, ranks, grid, block):
                 f"total time below one of its phases: {times}")
     g = r.get("gflops")
     c.check(isinstance(g, (int, float)) and math.isfinite(g) and g > 0, f"gflops = {g}")
-    berr, limit = r.get("backward_error"), 10 * n * eps(a.dtype)
+    berr, limit = r.get("normwise_backward_error"), 10 * n * eps(a.dtype)
     # 10 n eps, as above (common practice)
     c.check(isinstance(berr, (int, float)) and 0 <= berr <= limit,
-            f"report backward_error = {berr}, accepted up to 10 n eps = {limit:.2e}")
+            f"report normwise_backward_error = {berr}, expected at most 10 n eps = {limit:.2e}")
+    # These systems are well conditioned (harness.conditioned_matrix): some digits, no flag.
+    digits, flags = r.get("trusted_digits"), r.get("flags")
+    c.check(isinstance(digits, int) and digits >= 1 and flags == [],
+            f"a well-conditioned system: trusted_digits = {digits}, flags = {flags}")
     c.check(r.get("status") == "solved", f"report status = {r.get('status')}")
     c.check(isinstance(r.get("version"), str) and re.match(r"\d+\.\d+", r["version"]),
             f"report version = {r.get('version')}")

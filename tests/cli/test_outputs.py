@@ -407,7 +407,7 @@ with suite.case("staging: private .gridlu-stage-XXXXXX dirs (0700), different in
 # ---------------------------------------------------------------------------------------------
 # (5) Any number of right-hand sides
 
-with suite.case("10,000 right-hand sides at N = 40: X, backward_errors, report (h5py, numpy)") \
+with suite.case("10,000 right-hand sides at N = 40: X, per-RHS figures, report (h5py, numpy)") \
         as c:
     n, k = 40, 10_000
     a = conditioned_matrix(rng, n, np.float64)
@@ -418,9 +418,12 @@ with suite.case("10,000 right-hand sides at N = 40: X, backward_errors, report (
     c.succeeded(run)
     with h5py.File(out, "r") as f:  # reference: h5py reads what gridlu wrote
         x = f["X"][()]
-        c.require("backward_errors" in f, f"no backward_errors dataset; file holds {list(f)}")
-        errs = f["backward_errors"][()]
-        worst = f["X"].attrs.get("backward_error")
+        c.require("normwise_backward_errors" in f,
+                  f"no normwise_backward_errors dataset; file holds {list(f)}")
+        errs = f["normwise_backward_errors"][()]
+        lists = {name: f[name].shape for name in
+                 ("componentwise_backward_errors", "forward_error_bounds") if name in f}
+        worst = f["X"].attrs.get("normwise_backward_error")
         kind = f.attrs.get("gridlu_kind")
         root = set(f.attrs)
     c.require(x.shape == (n, k), f"X has shape {x.shape}")
@@ -429,27 +432,29 @@ with suite.case("10,000 right-hand sides at N = 40: X, backward_errors, report (
     c.check(err <= tol, f"||X - X_numpy||_F / ||X_numpy||_F = {err:.2e} > {tol:.2e}")
     worst_col = np.abs(x - x_ref).max(axis=0) / np.abs(x_ref).max(axis=0)
     c.check(worst_col.max() <= tol, f"column {worst_col.argmax()} off by {worst_col.max():.2e}")
-    c.check(errs.shape == (k,), f"backward_errors has shape {errs.shape}, expected ({k},)")
+    c.check(errs.shape == (k,), f"normwise_backward_errors has shape {errs.shape}, expected ({k},)")
+    c.check(lists == {"componentwise_backward_errors": (k,), "forward_error_bounds": (k,)},
+            f"the other per-RHS datasets: {lists}")
     # reference: the normwise backward error of each column, evaluated with numpy
     r = b - a @ x
     mine = np.abs(r).max(axis=0) / (np.abs(a).sum(axis=1).max() * np.abs(x).max(axis=0) +
                                     np.abs(b).max(axis=0))
-    threshold = 10 * n * np.finfo(np.float64).eps
+    threshold = 10 * n * np.finfo(np.float64).eps  # the usual level for LU (common practice)
     if errs.shape == (k,):
         c.check(np.all(np.isfinite(errs)) and errs.max() <= threshold,
                 f"backward errors up to {errs.max():.2e} > 10 n eps = {threshold:.2e}")
         c.check(np.all(mine <= threshold), f"numpy finds backward errors up to {mine.max():.2e}")
         if worst is not None:
             c.check(np.isclose(float(np.asarray(worst).ravel()[0]), errs.max(), rtol=1e-6),
-                    f"X's backward_error {worst} is not the largest of backward_errors "
-                    f"{errs.max()}")
-    c.check(worst is not None, "X lacks the attribute backward_error")
+                    f"X's normwise_backward_error {worst} is not the largest of "
+                    f"normwise_backward_errors {errs.max()}")
+    c.check(worst is not None, "X lacks the attribute normwise_backward_error")
     c.check(kind is not None and as_text(kind) == "solution", f"gridlu_kind = {kind!r}")
     wanted = {"gridlu_format", "gridlu_version", "job_id", "input", "output", "matrix_dataset"}
     c.check(wanted <= root, f"X's file lacks the root attributes {sorted(wanted - root)}")
     data = json.loads(report.read_text())
-    c.check(len(data.get("backward_errors", [])) == k,
-            f"the report has {len(data.get('backward_errors', []))} backward errors")
+    c.check(len(data.get("normwise_backward_errors", [])) == k,
+            f"the report has {len(data.get('normwise_backward_errors', []))} backward errors")
 
 
 # ---------------------------------------------------------------------------------------------

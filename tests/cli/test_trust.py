@@ -5,6 +5,7 @@ too few trusted digits (exit 7)."""
 
 import json
 import math
+import re
 import sys
 from fractions import Fraction
 from pathlib import Path
@@ -216,7 +217,19 @@ def nothing_written(c, *paths):
 # ---------------------------------------------------------------------------------------------
 # 1. Non-finite X
 
-with suite.case("non-finite X (pivot 1e-300, b = 1e10): exit 4 naming X[0, 1], nothing written") as c:
+def refused_nonfinite(c, a, b, entry, grids):
+    """solve exits 4 with one error line naming `entry`, on each (ranks, grid, block); with a
+    block of 1 the entries of X are spread over the ranks, and the first bad one may live on
+    rank 1 while rank 0 speaks."""
+    for ranks, grid, block in grids:
+        tag = f"x{ranks}-{grid}"
+        run, out, report = solve(c, a, b, "--grid", grid, "--block", block, ranks=ranks, tag=tag)
+        c.failed_with(run, NUMERICAL, re.escape(entry) + r"(?![\[\d])")
+        nothing_written(c, out, report)
+
+
+with suite.case("non-finite X (pivot 1e-300, b = 1e10): exit 4 naming X[0, 1], nothing "
+                "written; 1 rank, and 2 ranks with X's column 1 on rank 1") as c:
     a = np.array([[1, 1, 1], [0, 1, 1], [0, 0, 1e-300]])
     b = np.array([[1, 0], [1, 0], [0, 1e10]])
     # Back substitution by hand (A is upper triangular, no interchange): column 1 gives
@@ -228,33 +241,45 @@ with suite.case("non-finite X (pivot 1e-300, b = 1e10): exit 4 naming X[0, 1], n
         x1 = b[0] - x2 - x3
     c.require(np.isfinite(x1[0]) and not np.isfinite(x1[1]) and not np.isfinite(x3[1]),
               "the hand-made solution is not as intended")
-    run, out, report = solve(c, a, b)
-    c.failed_with(run, NUMERICAL, r"X\[0, 1\]")
-    nothing_written(c, out, report)
+    refused_nonfinite(c, a, b, "X[0, 1]", [(1, "1x1", 224), (2, "1x2", 1)])
 
-with suite.case("non-finite X, 1-D B: the entry is named X[0]") as c:
+with suite.case("non-finite X, 1-D B: named X[0], 1 rank and 2 ranks (2x1, block 1)") as c:
     a = np.array([[1, 1, 1], [0, 1, 1], [0, 0, 1e-300]])
-    b = np.array([0, 0, 1e10])  # x = (NaN, -inf, inf) as above
-    run, out, report = solve(c, a, b, ranks=2)
-    c.failed_with(run, NUMERICAL, r"X\[0\](?!\[)")
-    nothing_written(c, out, report)
+    b = np.array([0, 0, 1e10])
+    # x = (NaN, -inf, inf) as above. Back substitution multiplies every entry of U above the
+    # diagonal, zeros too, and 0 x inf is NaN (IEEE 754): a non-finite x_j spoils x_0 .. x_j-1,
+    # so the first bad entry of a 1-D X is X[0] whichever entry overflows.
+    refused_nonfinite(c, a, b, "X[0]", [(1, "1x1", 224), (2, "2x1", 1)])
+
+def overflowing_system(n):
+    """A float32 system whose X does not fit in float32: singular values of A in
+    [1e-4, 1e-3] and B ~ 1e37 make ||x||_2 >= 1e3 ||b||_2, beyond float32's 3.4e38."""
+    a = (conditioned_matrix(rng, n, np.float64, cond=10) * 1e-4).astype(np.float32)
+    b = (random_matrix(rng, (n, 2), np.float64) * 1e37).astype(np.float32)
+    return a, b
+
 
 with suite.case("float32 X beyond float32's range (n=300, B ~ 1e37, A ~ 1e-5): exit 4, "
                 "nothing written, 2 ranks") as c:
     n = 300
-    # Singular values in [1e-4, 1e-3]: ||x||_2 >= 1e3 ||b||_2, far beyond float32's 3.4e38.
-    a = (conditioned_matrix(rng, n, np.float64, cond=10) * 1e-4).astype(np.float32)
-    b = (random_matrix(rng, (n, 2), np.float64) * 1e37).astype(np.float32)
-    true_x = reference_solution(a, b)
+    a, b = overflowing_system(n)
+    top = np.abs(reference_solution(a, b)).max(axis=0)
     # numpy in float64: the exact answer really does not fit in float32, in both columns.
-    top = np.abs(true_x).max(axis=0)
     c.require(np.all(top > 100 * np.finfo(np.float32).max),
               f"numpy's |X| reaches only {top}: the system does not overflow float32")
+    run, out, report = solve(c, a, b, "--block", 64, ranks=2)
+    line = c.failed_with(run, NUMERICAL)
+    named = re.search(r"X\[(\d+), (\d+)\]", line)
+    c.check(named and int(named[1]) < n and int(named[2]) < 2,
+            f"{line!r} should name an entry X[i, j] of a {n} x 2 X")
+    nothing_written(c, out, report)
+
+with suite.case("exit 4 for a non-finite X with --save-factors: no factors file either "
+                "(issue 14: 'nothing is written')") as c:
+    a, b = overflowing_system(100)
     factors = c.dir / "lu.h5"
-    run, out, report = solve(c, a, b, "--save-factors", factors, "--block", 64, ranks=2)
-    line = c.failed_with(run, NUMERICAL, r"X\[\d+, [01]\]")
-    idx = [int(v) for v in line.split("X[", 1)[1].split("]")[0].split(",")] if "X[" in line else []
-    c.check(len(idx) == 2 and 0 <= idx[0] < n, f"named entry {idx} not in a {n} x 2 X")
+    run, out, report = solve(c, a, b, "--save-factors", factors, ranks=2)
+    c.failed_with(run, NUMERICAL, r"X\[\d+, \d+\]")
     nothing_written(c, out, report, factors)
 
 
@@ -291,7 +316,8 @@ with suite.case("kappa ~ 1e15 (n=80, float64): ill_conditioned, at most 2 truste
     c.check("ill_conditioned" in r["flags"], f"flags {r['flags']} lack ill_conditioned")
     c.check(r.get("trusted_digits") <= 2, f"trusted_digits = {r.get('trusted_digits')} > 2")
     lines = [s for s in run.stdout.splitlines() if s.startswith("  flag")]
-    c.check(any("ill_conditioned" in s for s in lines), f"no '  flag ill_conditioned' line: {lines}")
+    c.check(any("ill_conditioned" in s for s in lines),
+            f"no '  flag ill_conditioned' line: {lines}")
 
 with suite.case("--require-digits 8: exit 7 with X written when kappa ~ 1e15, exit 0 when well "
                 "conditioned") as c:
@@ -303,9 +329,10 @@ with suite.case("--require-digits 8: exit 7 with X written when kappa ~ 1e15, ex
     x = read_h5(out, "X")
     c.check(x.shape == (80, 2) and np.all(np.isfinite(x)), f"X {x.shape}, finite: "
             f"{np.all(np.isfinite(x))}")
-    if report.exists():
-        digits = load(report).get("trusted_digits")
-        c.check(isinstance(digits, int) and digits < 8, f"report trusted_digits = {digits}")
+    # README: on exit 7 "X and the report are still written".
+    c.require(report.exists(), "no report on exit 7")
+    digits = load(report).get("trusted_digits")
+    c.check(isinstance(digits, int) and digits < 8, f"report trusted_digits = {digits}")
     good_dir = c.dir / "good"
     good_dir.mkdir()
     a, b = conditioned_matrix(rng, 80, np.float64), random_matrix(rng, (80, 2), np.float64)
@@ -471,10 +498,21 @@ def check_transposed(c, r, out, a, b, mode, what):
     return x
 
 
+def lopsided(c, dtype):
+    """A random 75 x 75 A with row 10 a hundred times the others: kappa_1(A^T) = kappa_inf(A)
+    is then some 30 times kappa_1(A), so a condition estimate of A instead of the system matrix
+    falls outside the factor 3 allowed (Higham 2002, §15.3)."""
+    a = random_matrix(rng, (75, 75), dtype)
+    a[10] *= 100
+    ratio = kappa(a, np.inf) / kappa(a, 1)
+    c.require(ratio > 9, f"kappa_inf / kappa_1 = {ratio:.1f}: A^T and A too alike")
+    return a
+
+
 def transpose_case(dtype):
     with suite.case(f"--transpose and --adjoint, {np.dtype(dtype).name} n=75, 3 RHS, --block 16, "
                     "grids 1x1, 1x2, 2x1, 2x2") as c:
-        a, b = random_matrix(rng, (75, 75), dtype), random_matrix(rng, (75, 3), dtype)
+        a, b = lopsided(c, dtype), random_matrix(rng, (75, 3), dtype)
         for grid in ("1x1", "1x2", "2x1", "2x2"):
             ranks, extra = grid_args(grid)
             xs = {}
@@ -486,7 +524,8 @@ def transpose_case(dtype):
             if not np.iscomplexobj(a):
                 # For real A, A^H = A^T: the same system.
                 d = rel_diff(xs["--adjoint"], xs["--transpose"])
-                c.check(d <= 1e-14, f"grid {grid}: real --adjoint and --transpose differ by {d:.1e}")
+                c.check(d <= 1e-14,
+                        f"grid {grid}: real --adjoint and --transpose differ by {d:.1e}")
 
 
 transpose_case(np.float64)
@@ -496,7 +535,7 @@ transpose_case(np.complex128)
 def factors_case(dtype):
     with suite.case(f"{np.dtype(dtype).name}: --save-factors, then --factors with --transpose "
                     "and --adjoint, also with --rhs-file, 2 ranks") as c:
-        a, b = random_matrix(rng, (75, 75), dtype), random_matrix(rng, (75, 3), dtype)
+        a, b = lopsided(c, dtype), random_matrix(rng, (75, 3), dtype)
         b2 = random_matrix(rng, (75, 2), dtype)
         write_h5(c.dir / "rhs2.h5", {"B": b2})
         lu = c.dir / "lu.h5"
@@ -507,7 +546,8 @@ def factors_case(dtype):
                 tag = f"f{mode}{len(extra)}"
                 run, out, report = solve(c, a, b, "--factors", lu, mode, *extra, ranks=2, tag=tag)
                 r = solved(c, run, report, dtype, rhs.shape[1])
-                check_transposed(c, r, out, a, rhs, mode, f"from factors {mode} {' '.join(map(str, extra))}")
+                what = f"from factors {mode}" + (" --rhs-file" if extra else "")
+                check_transposed(c, r, out, a, rhs, mode, what)
 
 
 factors_case(np.float64)
@@ -537,7 +577,8 @@ with suite.case("float32: a well-conditioned system (n=200) has no flags and >= 
     c.check(r["flags"] == [], f"flags {r['flags']} on a well-conditioned system")
     c.check(r.get("trusted_digits") >= 3, f"trusted_digits = {r.get('trusted_digits')}")
     ratio = as_number(r.get("normwise_backward_error")) / r["unit_roundoff"]
-    # Backward stability of LU with partial pivoting: eta a modest multiple of u (Higham 2002, §9.3).
+    # Backward stability of LU with partial pivoting: eta a modest multiple of u
+    # (Higham 2002, §9.3).
     c.check(ratio < 1000, f"normwise backward error = {ratio:.1f} u")
     near(c, r.get("normwise_backward_error"), normwise(a, read_h5(out, "X"), b).max(), 1e-3,
          "normwise backward error vs numpy from X")
@@ -572,7 +613,8 @@ with suite.case("--refine on a row-scaled float64 system (n=120, rows x 10^[-8, 
     r = solved(c, run, report, np.float64, 2)
     ref = r.get("refinement")
     c.require(isinstance(ref, dict), f"refinement = {ref!r}")
-    c.check(r.get("job", {}).get("refine") is True, f"job.refine = {r.get('job', {}).get('refine')}")
+    c.check(r.get("job", {}).get("refine") is True,
+            f"job.refine = {r.get('job', {}).get('refine')}")
     c.check(isinstance(ref.get("iterations"), int) and ref["iterations"] >= 1,
             f"refinement.iterations = {ref.get('iterations')}")
     history = [as_number(v) for v in ref.get("componentwise_backward_errors", [])]
@@ -602,7 +644,8 @@ with suite.case("--refine on a row-scaled float64 system (n=120, rows x 10^[-8, 
 # ---------------------------------------------------------------------------------------------
 # 9. Demo
 
-with suite.case("demo --n 300 --rhs 2 on 2 ranks: the same figures in its report and on stdout") as c:
+with suite.case("demo --n 300 --rhs 2 on 2 ranks: the same figures in its report and on "
+                "stdout") as c:
     report = c.dir / "d.json"
     run = suite.run("demo", "--n", 300, "--rhs", 2, "--report", report, ranks=2)
     c.succeeded(run)
