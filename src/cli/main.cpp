@@ -49,7 +49,7 @@ constexpr int short_of_digits_code = 7;
 
 constexpr const char* exit_codes_help =
     "Exit codes: 0 solved, 1 internal error, 2 usage error, 3 input data error,\n"
-    "            4 numerical failure (A exactly singular, or X not finite: nothing written),\n"
+    "            4 numerical failure (A exactly singular, or X not finite): no X written,\n"
     "            5 stopped early (with a checkpoint if asked),\n"
     "            6 output or resource failure (disk full, not writable, busy),\n"
     "            7 X written but with fewer trusted digits than --require-digits asks.";
@@ -238,9 +238,15 @@ void print_solved(const process_grid& grid, const workflows::solve_result& r) {
   print_trust(r.trust, r.refined);
 }
 
-// Exit 7 when X has fewer trusted digits than asked (0: nothing asked).
-int digits_code(const trust_report& t, std::int64_t required) {
-  return t.trusted_digits < required ? short_of_digits_code : 0;
+// Exit 7, said on one line, when X has fewer trusted digits than asked (0: nothing asked).
+int digits_code(const process_grid& grid, const trust_report& t, std::int64_t required) {
+  if (t.trusted_digits >= required) return 0;
+  if (grid.rank() == 0)
+    std::fprintf(stderr,
+                 "gridlu: X has %d trusted digit(s), fewer than the %lld --require-digits asks "
+                 "(this type carries at most %d); X is written\n",
+                 t.trusted_digits, static_cast<long long>(required), type_digits(t.unit_roundoff));
+  return short_of_digits_code;
 }
 
 // What rank 0 says after a solve or a resume, and the exit code.
@@ -248,7 +254,7 @@ int report_solve(const process_grid& grid, const workflows::solve_result& r,
                  const common_options& c) {
   const int code = r.stopped            ? stopped_code
                    : r.already_complete ? 0
-                                        : digits_code(r.trust, r.what.require_digits);
+                                        : digits_code(grid, r.trust, r.what.require_digits);
   if (grid.rank() != 0) return code;
   if (r.already_complete) {
     std::printf("gridlu: the job in %s is complete; its X is in %s (nothing to do)\n",
@@ -301,7 +307,7 @@ int run_bench(const common_options& c, const workflows::bench_options& o) {
 int run_demo(const common_options& c, const workflows::demo_options& o, std::int64_t digits) {
   const auto grid = make_grid(c);
   const auto r = workflows::demo(grid, o);
-  const int code = digits_code(r.trust, digits);
+  const int code = digits_code(grid, r.trust, digits);
   if (grid.rank() != 0) return code;
   std::printf("gridlu demo: random %s system, n = %lld, %lld right-hand side(s)\n", o.type.c_str(),
               static_cast<long long>(o.n), static_cast<long long>(o.nrhs));
