@@ -47,7 +47,7 @@ double estimate_norm_1(const apply_fn<T>& b_times, const apply_fn<T>& adjoint_ti
     adjoint_times(v);
     const index_t last = j;
     j = largest_entry(v);
-    if (real_at(v, last) >= abs_at(v, j)) break;  // no column promises more
+    if (std::real(entry_at(v, last)) >= std::abs(entry_at(v, j))) break;  // nothing better
   }
   // Higham's extra test vector guards against matrices that fool the iteration.
   v.fill([&](index_t i, index_t) {

@@ -63,18 +63,11 @@ index_t largest_entry(const dist_matrix<T>& v) {
   return row == std::numeric_limits<std::int64_t>::max() ? 0 : row;
 }
 
-// The real part and the modulus of entry i, on every rank.
+// Entry i, in the wide type, on every rank.
 template <scalar T>
-double real_at(const dist_matrix<T>& v, index_t i) {
-  double x = 0;
-  if (const T* p = v.find(i, 0)) x = std::real(static_cast<wide_t<T>>(*p));
-  comm::sum(v.grid().all(), &x, 1);
-  return x;
-}
-template <scalar T>
-double abs_at(const dist_matrix<T>& v, index_t i) {
-  double x = 0;
-  if (const T* p = v.find(i, 0)) x = std::abs(static_cast<wide_t<T>>(*p));
+wide_t<T> entry_at(const dist_matrix<T>& v, index_t i) {
+  wide_t<T> x = 0;
+  if (const T* p = v.find(i, 0)) x = *p;
   comm::sum(v.grid().all(), &x, 1);
   return x;
 }

@@ -1,6 +1,7 @@
 // Solves with the distributed LU factors of A, for many right-hand sides: with A, its
 // transpose or its conjugate transpose.
 #include <algorithm>
+#include <utility>
 
 #include "factor/interchange.hpp"
 #include "gridlu/lu.hpp"
@@ -14,43 +15,63 @@ using blas::diagonal;
 using blas::op;
 using blas::triangle;
 
+// Block k of the factors as this rank sees it, and the pieces of its block column,
+// which the owning process column sends along each process row.
+template <scalar T>
+struct block_column {
+  block_column(const dist_matrix<T>& factors, index_t k)
+      : lu(factors),
+        j0(lu.layout().rows.block_start(k)),
+        jb(lu.layout().rows.block_size(k)),
+        pr(lu.layout().rows.block_owner(k)),
+        pc(lu.layout().cols.block_owner(k)),
+        lrk(lu.layout().rows.local_begin(lu.grid().myrow(), j0)),
+        lck(lu.layout().cols.local_begin(lu.grid().mycol(), j0)) {}
+
+  // This rank's rows of the triangle beside the diagonal block, as (first, count):
+  // below it for L, above it for U.
+  std::pair<index_t, index_t> off_diagonal(triangle part) const {
+    if (part == triangle::upper) return {0, lrk};
+    const index_t first = lu.layout().rows.local_begin(lu.grid().myrow(), j0 + jb);
+    return {first, lu.local_rows() - first};
+  }
+
+  // Local rows [first, first + count) of the block column, on every rank of the row.
+  void fetch(index_t first, index_t count, std::vector<T>& to) const {
+    to.resize(static_cast<std::size_t>(count * jb));
+    if (lu.grid().mycol() == pc)
+      copy_block(count, jb, lu.at(first, lck), lu.ld(), to.data(), count);
+    comm::broadcast(lu.grid().row(), to.data(), count * jb, pc);
+  }
+
+  const dist_matrix<T>& lu;
+  index_t j0, jb;
+  int pr, pc;
+  index_t lrk, lck;
+};
+
 // Solves with the unit-lower (L) or upper (U) triangle of lu, block row by block row:
 // the diagonal block goes along its process row, the solved block row of b down the
 // process columns, and the triangle's column below (L) or above (U) along the rows for
 // one GEMM per rank.
 template <scalar T>
 void sweep(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part) {
-  const auto& grid = lu.grid();
-  const auto& rows = lu.layout().rows;
-  const auto& cols = lu.layout().cols;
-  const int myrow = grid.myrow(), mycol = grid.mycol();
-  const index_t mloc = lu.local_rows(), nrhs = b.local_cols();
-  const index_t blocks = rows.block_count();
+  const index_t nrhs = b.local_cols(), blocks = lu.layout().rows.block_count();
   const bool lower = part == triangle::lower;
   std::vector<T> diag, solved, column;
   for (index_t s = 0; s < blocks; ++s) {
-    const index_t k = lower ? s : blocks - 1 - s;
-    const index_t j0 = rows.block_start(k), jb = rows.block_size(k);
-    const int pr = rows.block_owner(k), pc = cols.block_owner(k);
-    const index_t lrk = rows.local_begin(myrow, j0), lck = cols.local_begin(mycol, j0);
-
+    const block_column<T> at(lu, lower ? s : blocks - 1 - s);
+    const index_t jb = at.jb;
     solved.resize(static_cast<std::size_t>(jb * nrhs));
-    if (myrow == pr) {
-      diag.resize(static_cast<std::size_t>(jb * jb));
-      if (mycol == pc) copy_block(jb, jb, lu.at(lrk, lck), lu.ld(), diag.data(), jb);
-      comm::broadcast(grid.row(), diag.data(), jb * jb, pc);
+    if (lu.grid().myrow() == at.pr) {
+      at.fetch(at.lrk, jb, diag);
       blas::trsm_left(part, lower ? diagonal::unit : diagonal::non_unit, op::none, jb, nrhs, T(1),
-                      diag.data(), jb, b.at(lrk, 0), b.ld());
-      copy_block(jb, nrhs, b.at(lrk, 0), b.ld(), solved.data(), jb);
+                      diag.data(), jb, b.at(at.lrk, 0), b.ld());
+      copy_block(jb, nrhs, b.at(at.lrk, 0), b.ld(), solved.data(), jb);
     }
-    comm::broadcast(grid.col(), solved.data(), jb * nrhs, pr);
-
-    // Rows still to update: below block k for L, above it for U.
-    const index_t first = lower ? rows.local_begin(myrow, j0 + jb) : 0;
-    const index_t count = lower ? mloc - first : lrk;
-    column.resize(static_cast<std::size_t>(count * jb));
-    if (mycol == pc) copy_block(count, jb, lu.at(first, lck), lu.ld(), column.data(), count);
-    comm::broadcast(grid.row(), column.data(), count * jb, pc);
+    comm::broadcast(lu.grid().col(), solved.data(), jb * nrhs, at.pr);
+    const auto [first, count] = at.off_diagonal(part);  // rows still to update
+    at.fetch(first, count, column);
     blas::gemm(op::none, op::none, count, nrhs, jb, T(-1), column.data(), count, solved.data(), jb,
                T(1), b.at(first, 0), b.ld());
   }
@@ -64,37 +85,24 @@ void sweep(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part) {
 // onto block row k. One message each way per block, as in the untransposed sweep.
 template <scalar T>
 void sweep_transposed(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part, op how) {
-  const auto& grid = lu.grid();
-  const auto& rows = lu.layout().rows;
-  const auto& cols = lu.layout().cols;
-  const int myrow = grid.myrow(), mycol = grid.mycol();
-  const index_t mloc = lu.local_rows(), nrhs = b.local_cols();
-  const index_t blocks = rows.block_count();
+  const index_t nrhs = b.local_cols(), blocks = lu.layout().rows.block_count();
   const bool upper = part == triangle::upper;
   std::vector<T> diag, column, partial;
   for (index_t s = 0; s < blocks; ++s) {
-    const index_t k = upper ? s : blocks - 1 - s;
-    const index_t j0 = rows.block_start(k), jb = rows.block_size(k);
-    const int pr = rows.block_owner(k), pc = cols.block_owner(k);
-    const index_t lrk = rows.local_begin(myrow, j0), lck = cols.local_begin(mycol, j0);
-
-    const index_t first = upper ? 0 : rows.local_begin(myrow, j0 + jb);
-    const index_t count = upper ? lrk : mloc - first;
-    column.resize(static_cast<std::size_t>(count * jb));
-    if (mycol == pc) copy_block(count, jb, lu.at(first, lck), lu.ld(), column.data(), count);
-    comm::broadcast(grid.row(), column.data(), count * jb, pc);
+    const block_column<T> at(lu, upper ? s : blocks - 1 - s);
+    const index_t jb = at.jb;
+    const auto [first, count] = at.off_diagonal(part);  // rows already solved
+    at.fetch(first, count, column);
     partial.assign(static_cast<std::size_t>(jb * nrhs), T(0));
     blas::gemm(how, op::none, jb, nrhs, count, T(1), column.data(), count, b.at(first, 0), b.ld(),
                T(0), partial.data(), jb);
-    comm::sum(grid.col(), partial.data(), jb * nrhs);
-    if (myrow != pr) continue;
+    comm::sum(lu.grid().col(), partial.data(), jb * nrhs);
+    if (lu.grid().myrow() != at.pr) continue;
     for (index_t c = 0; c < nrhs; ++c)
-      for (index_t i = 0; i < jb; ++i) *b.at(lrk + i, c) -= partial[i + c * jb];
-    diag.resize(static_cast<std::size_t>(jb * jb));
-    if (mycol == pc) copy_block(jb, jb, lu.at(lrk, lck), lu.ld(), diag.data(), jb);
-    comm::broadcast(grid.row(), diag.data(), jb * jb, pc);
+      for (index_t i = 0; i < jb; ++i) *b.at(at.lrk + i, c) -= partial[i + c * jb];
+    at.fetch(at.lrk, jb, diag);
     blas::trsm_left(part, upper ? diagonal::non_unit : diagonal::unit, how, jb, nrhs, T(1),
-                    diag.data(), jb, b.at(lrk, 0), b.ld());
+                    diag.data(), jb, b.at(at.lrk, 0), b.ld());
   }
 }
 

@@ -199,7 +199,7 @@ TYPED_TEST(Accuracy, WilkinsonsMatrixGrowsByTwoToTheNMinusOne) {
     const process_grid grid(MPI_COMM_WORLD, shape);
     const index_t n = 40;
     dist_matrix<T> a(grid, n, n, 6);
-    a.fill([&](index_t i, index_t j) { return T(j == n - 1 || i == j ? 1 : i > j ? -1 : 0); });
+    a.fill([&](index_t i, index_t j) { return wilkinson_entry<T>(n, i, j); });
     const auto lu = factor(a);
     const auto f = measure_factors(a, lu.pivots, solve_with::a);
     EXPECT_EQ(f.max_u, std::ldexp(1.0, 39));
