@@ -41,33 +41,79 @@ std::vector<double> column_maxima(const dist_matrix<T>& a, F&& f) {
   return m;
 }
 
-// out += alpha f(m) f(x), f applied to each entry as the blocks are packed: one outer
-// product per block k of m's columns, m's block column along the process rows, x's
-// block row down the process columns, one GEMM per rank.
+// Copies a rows x cols block into `to` (leading dimension rows), f applied to each entry.
+template <class T, class W, class F>
+void pack(index_t rows, index_t cols, const T* from, index_t ld, std::vector<W>& to, F&& f) {
+  to.resize(static_cast<std::size_t>(rows * cols));
+  for (index_t c = 0; c < cols; ++c)
+    for (index_t r = 0; r < rows; ++r) to[r + c * rows] = f(from[r + c * ld]);
+}
+
+// out += alpha f(m) f(x) for many columns of x: one outer product per block k of m's
+// columns, m's block column along the process rows, x's block row down the process
+// columns, one GEMM per rank.
 template <scalar T, scalar W, class F>
-void add_product(const dist_matrix<T>& m, const dist_matrix<T>& x, W alpha, F&& f,
-                 dist_matrix<W>& out) {
+void add_product_spread(const dist_matrix<T>& m, const dist_matrix<T>& x, W alpha, F&& f,
+                        dist_matrix<W>& out) {
   const auto& grid = m.grid();
   const auto& inner = m.layout().cols;
-  const auto pack = [&](index_t rows, index_t cols, const T* from, index_t ld, std::vector<W>& to) {
-    to.resize(static_cast<std::size_t>(rows * cols));
-    for (index_t c = 0; c < cols; ++c)
-      for (index_t r = 0; r < rows; ++r) to[r + c * rows] = f(from[r + c * ld]);
-  };
   std::vector<W> left, right;
   for (index_t k = 0; k < inner.block_count(); ++k) {
     const index_t j0 = inner.block_start(k), jb = inner.block_size(k);
     const int pc = inner.block_owner(k), pr = x.layout().rows.block_owner(k);
     left.resize(static_cast<std::size_t>(m.local_rows() * jb));
     right.resize(static_cast<std::size_t>(jb * x.local_cols()));
-    if (grid.mycol() == pc) pack(m.local_rows(), jb, m.at(0, inner.local(j0)), m.ld(), left);
+    if (grid.mycol() == pc) pack(m.local_rows(), jb, m.at(0, inner.local(j0)), m.ld(), left, f);
     if (grid.myrow() == pr)
-      pack(jb, x.local_cols(), x.at(x.layout().rows.local(j0), 0), x.ld(), right);
+      pack(jb, x.local_cols(), x.at(x.layout().rows.local(j0), 0), x.ld(), right, f);
     comm::broadcast(grid.row(), left.data(), static_cast<index_t>(left.size()), pc);
     comm::broadcast(grid.col(), right.data(), static_cast<index_t>(right.size()), pr);
     blas::gemm(blas::op::none, blas::op::none, out.local_rows(), out.local_cols(), jb, alpha,
                left.data(), m.local_rows(), right.data(), jb, W(1), out.data(), out.ld());
   }
+}
+
+// The same for x in one process column: m stays where it is and only x's block rows
+// travel, to the process column that holds the matching block column of m; each rank
+// sums its own products and the process rows add them up.
+template <scalar T, scalar W, class F>
+void add_product_few(const dist_matrix<T>& m, const dist_matrix<T>& x, W alpha, F&& f,
+                     dist_matrix<W>& out) {
+  const auto& grid = m.grid();
+  const auto& inner = m.layout().cols;
+  const index_t rows = m.local_rows(), nrhs = x.cols(), ld = std::max<index_t>(1, rows);
+  const int home = x.layout().cols.block_owner(0);
+  std::vector<W> xs(static_cast<std::size_t>(ld * nrhs)), sum(xs.size(), W(0)), left, piece;
+  if (grid.mycol() == home) {
+    pack(rows, nrhs, x.data(), x.ld(), piece, f);
+    copy_block(rows, nrhs, piece.data(), rows, xs.data(), ld);
+  }
+  comm::broadcast(grid.row(), xs.data(), ld * nrhs, home);
+  for (index_t k = 0; k < inner.block_count(); ++k) {
+    if (grid.mycol() != inner.block_owner(k)) continue;
+    const index_t j0 = inner.block_start(k), jb = inner.block_size(k);
+    const int pr = x.layout().rows.block_owner(k);
+    piece.resize(static_cast<std::size_t>(jb * nrhs));
+    if (grid.myrow() == pr)
+      copy_block(jb, nrhs, xs.data() + x.layout().rows.local(j0), ld, piece.data(), jb);
+    comm::broadcast(grid.col(), piece.data(), jb * nrhs, pr);
+    pack(rows, jb, m.at(0, inner.local(j0)), m.ld(), left, f);
+    blas::gemm(blas::op::none, blas::op::none, rows, nrhs, jb, W(1), left.data(), rows,
+               piece.data(), jb, W(1), sum.data(), ld);
+  }
+  comm::sum(grid.row(), sum.data(), ld * nrhs);
+  if (grid.mycol() != home) return;
+  for (index_t c = 0; c < nrhs; ++c)
+    for (index_t i = 0; i < rows; ++i) *out.at(i, c) += alpha * sum[i + c * ld];
+}
+
+template <scalar T, scalar W, class F>
+void add_product(const dist_matrix<T>& m, const dist_matrix<T>& x, W alpha, F&& f,
+                 dist_matrix<W>& out) {
+  if (x.cols() <= x.block())
+    add_product_few(m, x, alpha, f, out);
+  else
+    add_product_spread(m, x, alpha, f, out);
 }
 
 }  // namespace

@@ -106,6 +106,115 @@ void sweep_transposed(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part
   }
 }
 
+// Few right-hand sides (b in one process column): moving the factors' block columns to
+// b, as the sweeps above do, would cost a pass of the whole matrix over the network per
+// solve. Here the factors stay in place and only pieces of b travel: each process row
+// keeps its rows of b on every rank of the row (w), partial products are formed where
+// the factors are and summed onto the block being solved.
+template <scalar T>
+class few_columns {
+public:
+  few_columns(const dist_matrix<T>& lu, const dist_matrix<T>& b)
+      : lu_(lu), nrhs_(b.cols()), ld_(std::max<index_t>(1, lu.local_rows())) {
+    w_.assign(static_cast<std::size_t>(ld_ * nrhs_), T(0));
+    if (lu.grid().mycol() == home(b))
+      copy_block(lu.local_rows(), nrhs_, b.data(), b.ld(), w_.data(), ld_);
+    comm::broadcast(lu.grid().row(), w_.data(), ld_ * nrhs_, home(b));
+  }
+
+  void store(dist_matrix<T>& b) const {
+    if (lu_.grid().mycol() == home(b))
+      copy_block(lu_.local_rows(), nrhs_, w_.data(), ld_, b.data(), b.ld());
+  }
+
+  // Solves with L (forward) or U (backward). Rank (p, q) sums the products of its
+  // own block columns in acc; the owner of a diagonal block collects its row's sums,
+  // solves, and sends the result down its process column for the next products.
+  void fan_in(triangle part) {
+    const auto& grid = lu_.grid();
+    const index_t blocks = lu_.layout().rows.block_count();
+    std::vector<T> acc(w_.size(), T(0)), piece;
+    for (index_t s = 0; s < blocks; ++s) {
+      const block_column<T> at(lu_, part == triangle::lower ? s : blocks - 1 - s);
+      const index_t jb = at.jb;
+      piece.resize(static_cast<std::size_t>(jb * nrhs_));
+      if (grid.myrow() == at.pr) {
+        const bool own = grid.mycol() == at.pc;
+        for (index_t c = 0; c < nrhs_; ++c)
+          for (index_t i = 0; i < jb; ++i)
+            piece[i + c * jb] = (own ? row(at.lrk + i, c) : T(0)) - acc[at.lrk + i + c * ld_];
+        comm::sum(grid.row(), piece.data(), jb * nrhs_);
+        if (own) solve_diagonal(at, part, op::none, piece);
+      }
+      if (grid.mycol() != at.pc) continue;
+      comm::broadcast(grid.col(), piece.data(), jb * nrhs_, at.pr);
+      const auto [first, count] = at.off_diagonal(part);
+      blas::gemm(op::none, op::none, count, nrhs_, jb, T(1), lu_.at(first, at.lck), lu_.ld(),
+                 piece.data(), jb, T(1), acc.data() + first, ld_);
+    }
+    share_solved_blocks();
+  }
+
+  // Solves with op(U) (forward) or op(L) (backward), op a transpose: the owners of
+  // block column k form their products with the rows already solved, sum them down the
+  // column onto the diagonal block's owner, which solves and sends along its row.
+  void fan_out(triangle part, op how) {
+    const auto& grid = lu_.grid();
+    const index_t blocks = lu_.layout().rows.block_count();
+    std::vector<T> piece;
+    for (index_t s = 0; s < blocks; ++s) {
+      const block_column<T> at(lu_, part == triangle::upper ? s : blocks - 1 - s);
+      const index_t jb = at.jb;
+      piece.assign(static_cast<std::size_t>(jb * nrhs_), T(0));
+      if (grid.mycol() == at.pc) {
+        const auto [first, count] = at.off_diagonal(part);
+        blas::gemm(how, op::none, jb, nrhs_, count, T(1), lu_.at(first, at.lck), lu_.ld(),
+                   w_.data() + first, ld_, T(0), piece.data(), jb);
+        comm::sum(grid.col(), piece.data(), jb * nrhs_);
+        if (grid.myrow() == at.pr) {
+          for (index_t c = 0; c < nrhs_; ++c)
+            for (index_t i = 0; i < jb; ++i)
+              piece[i + c * jb] = row(at.lrk + i, c) - piece[i + c * jb];
+          solve_diagonal(at, part, how, piece);
+        }
+      }
+      if (grid.myrow() != at.pr) continue;
+      comm::broadcast(grid.row(), piece.data(), jb * nrhs_, at.pc);
+      copy_block(jb, nrhs_, piece.data(), jb, w_.data() + at.lrk, ld_);
+    }
+  }
+
+private:
+  static int home(const dist_matrix<T>& b) { return b.layout().cols.block_owner(0); }
+  T& row(index_t li, index_t c) { return w_[li + c * ld_]; }
+
+  void solve_diagonal(const block_column<T>& at, triangle part, op how, std::vector<T>& piece) {
+    const bool unit = part == triangle::lower;
+    blas::trsm_left(part, unit ? diagonal::unit : diagonal::non_unit, how, at.jb, nrhs_, T(1),
+                    lu_.at(at.lrk, at.lck), lu_.ld(), piece.data(), at.jb);
+    copy_block(at.jb, nrhs_, piece.data(), at.jb, w_.data() + at.lrk, ld_);
+  }
+
+  // After fan_in each block of w is right only on its diagonal owner: the others zero
+  // theirs and the row sums them.
+  void share_solved_blocks() {
+    const auto& rows = lu_.layout().rows;
+    const auto& grid = lu_.grid();
+    for (index_t k = 0; k < rows.block_count(); ++k) {
+      if (rows.block_owner(k) != grid.myrow() || lu_.layout().cols.block_owner(k) == grid.mycol())
+        continue;
+      const index_t lrk = rows.local_begin(grid.myrow(), rows.block_start(k));
+      for (index_t c = 0; c < nrhs_; ++c)
+        std::fill_n(w_.data() + lrk + c * ld_, rows.block_size(k), T(0));
+    }
+    comm::sum(grid.row(), w_.data(), ld_ * nrhs_);
+  }
+
+  const dist_matrix<T>& lu_;
+  index_t nrhs_, ld_;
+  std::vector<T> w_;
+};
+
 }  // namespace
 
 template <scalar T>
@@ -118,17 +227,33 @@ void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matri
   const detail::column_range all[] = {{0, b.local_cols()}};
   detail::interchange_buffers<T> buffers;
   const auto& rows = b.layout().rows;
+  // Up to a block of right-hand sides lie in one process column.
+  const bool few = b.cols() <= b.block();
   if (with == solve_with::a) {
     // P A = L U: x = inv(U) inv(L) P b.
     detail::interchange_rows(b, 0, pivots, all, buffers);
-    sweep(lu, b, triangle::lower);
-    sweep(lu, b, triangle::upper);
+    if (few) {
+      few_columns<T> w(lu, b);
+      w.fan_in(triangle::lower);
+      w.fan_in(triangle::upper);
+      w.store(b);
+    } else {
+      sweep(lu, b, triangle::lower);
+      sweep(lu, b, triangle::upper);
+    }
     return;
   }
   // A^T = U^T L^T P: x = P^T inv(L^T) inv(U^T) b, and alike with conjugates.
   const op how = with == solve_with::transpose ? op::transpose : op::adjoint;
-  sweep_transposed(lu, b, triangle::upper, how);
-  sweep_transposed(lu, b, triangle::lower, how);
+  if (few) {
+    few_columns<T> w(lu, b);
+    w.fan_out(triangle::upper, how);
+    w.fan_out(triangle::lower, how);
+    w.store(b);
+  } else {
+    sweep_transposed(lu, b, triangle::upper, how);
+    sweep_transposed(lu, b, triangle::lower, how);
+  }
   detail::interchange_rows(b, detail::plan_interchanges(rows, b.grid().myrow(), 0, pivots, true),
                            all, buffers);
 }

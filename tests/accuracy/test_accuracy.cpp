@@ -134,10 +134,12 @@ blas::op lapack_op(solve_with with) {
                                          : blas::op::adjoint;
 }
 
+// Both ways of solving: right-hand sides in one process column (nb >= k) and spread
+// over several (nb < k).
 TYPED_TEST(Accuracy, TransposedAndAdjointSolvesMatchLapack) {
   using T = TypeParam;
   for (const auto shape : shapes_for_world())
-    for (const index_t nb : {4, 7})
+    for (const index_t nb : {1, 2, 4, 7})
       for (const solve_with with : {solve_with::a, solve_with::transpose, solve_with::adjoint}) {
         const process_grid grid(MPI_COMM_WORLD, shape);
         const index_t n = 45, k = 3;
