@@ -4,6 +4,7 @@
 
 #include <cerrno>
 #include <cstdio>
+#include <string_view>
 #include <type_traits>
 
 namespace gridlu::workflows {
@@ -13,6 +14,12 @@ nlohmann::json to_json(const job& j) {
   for_each_field(j, [&](const char* key, const auto& member) { out[key] = member; });
   return out;
 }
+
+namespace {
+bool is_later_key(std::string_view key) {
+  return key == "solve_with" || key == "refine" || key == "require_digits";
+}
+}  // namespace
 
 job job_from_json(const std::string& text, const std::string& where) {
   const auto damaged = [&](const std::string& what) {
@@ -24,6 +31,9 @@ job job_from_json(const std::string& text, const std::string& where) {
   for_each_field(j, [&](const char* key, auto& member) {
     using M = std::remove_reference_t<decltype(member)>;
     const auto it = parsed.find(key);
+    // Keys added since the first gridlu that recorded jobs keep their defaults when
+    // absent, so that a job an earlier version started can be resumed by this one.
+    if (it == parsed.end() && is_later_key(key)) return;
     const bool fits = it != parsed.end() && [&] {
       if constexpr (std::is_same_v<M, std::string>) return it->is_string();
       if constexpr (std::is_same_v<M, bool>) return it->is_boolean();

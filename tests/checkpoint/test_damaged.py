@@ -3,6 +3,7 @@ another kind, made from an input that has changed since): exit 3, one error line
 of a finished solve: says so and writes nothing. gridlu info on a stopped checkpoint: its
 progress and restarts."""
 
+import json
 import os
 import re
 import shutil
@@ -13,7 +14,7 @@ import h5py
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from checkpoint_support import (BLOCK, EVERY, N, NO_DATA, RANKS, System, harness,  # noqa: E402
-                                interrupt, sound_checkpoint)
+                                interrupt, read_h5, rel_diff, sound_checkpoint)
 
 suite = harness.Suite(__doc__)
 system = System(suite, seed=7307)
@@ -106,6 +107,19 @@ with suite.case("resume of a finished solve: says complete, exit 0, writes nothi
     c.check(out.read_bytes() == content, "X was rewritten")
     after = snapshot(c.dir)
     c.check(after == before, f"files changed: {sorted(set(after.items()) ^ set(before.items()))}")
+
+with suite.case("a job recorded before solve_with, refine and require_digits existed resumes "
+                "as A X = B") as c:
+    ckpt, out = stopped_solve(c)
+    record = json.loads((ckpt / "job.json").read_text())
+    for key in ("solve_with", "refine", "require_digits"):
+        c.require(record.pop(key, None) is not None, f"job.json lacks {key}")
+    (ckpt / "job.json").write_text(json.dumps(record, indent=2) + "\n")
+    c.succeeded(suite.run("resume", ckpt, ranks=RANKS))
+    c.require(out.exists(), "resume wrote no X")
+    # reference: numpy.linalg.solve; COND = 10, so X is good to about 14 digits
+    err = rel_diff(read_h5(out, "X"), system.x_numpy)
+    c.check(err <= 1e-10, f"||X - X_numpy|| / ||X_numpy|| = {err:.1e}")
 
 with suite.case("gridlu info on a checkpoint stopped again after a resume") as c:
     ckpt, _ = stopped_solve(c)
