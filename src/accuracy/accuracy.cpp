@@ -3,26 +3,16 @@
 #include <cmath>
 #include <limits>
 
+#include "accuracy/figures.hpp"
 #include "instantiate.hpp"
 #include "kernels/blas.hpp"
 
 namespace gridlu {
 namespace {
 
-// Running maximum and minimum that keep a NaN once seen.
-void keep_max(double& m, double v) {
-  if (std::isnan(v) || v > m) m = v;
-}
-void keep_min(double& m, double v) {
-  if (std::isnan(v) || v < m) m = v;
-}
-
-// a / b for figures >= 0: NaN if either is, 0 / 0 = 0 (nothing to judge), x / 0 infinite.
-double ratio(double a, double b) {
-  if (std::isnan(a) || std::isnan(b)) return std::numeric_limits<double>::quiet_NaN();
-  if (b > 0) return a / b;
-  return a == 0 ? 0.0 : std::numeric_limits<double>::infinity();
-}
+using detail::keep_max;
+using detail::keep_min;
+using detail::ratio;
 
 template <scalar T>
 double magnitude(T x) {

@@ -5,13 +5,14 @@
 #include <cstdio>
 #include <limits>
 
+#include "accuracy/figures.hpp"
+
 namespace gridlu {
 namespace {
 
 constexpr double infinity = std::numeric_limits<double>::infinity();
 
-// a / b for figures that are >= 0: 0 / 0 is 0 (nothing to judge), x / 0 infinite.
-double ratio(double a, double b) { return b > 0 ? a / b : (a == 0 ? 0.0 : infinity); }
+using detail::ratio;
 
 std::string figure(double v) {
   char text[32];
@@ -60,10 +61,7 @@ void add_flags(trust_report& t, const trust_rules& rules) {
 
 double worst_of(const std::vector<double>& values) {
   double w = 0;
-  for (const double v : values) {
-    if (std::isnan(v)) return v;
-    w = std::max(w, v);
-  }
+  for (const double v : values) detail::keep_max(w, v);
   return w;
 }
 

@@ -3,6 +3,7 @@
 #pragma once
 
 #include <string>
+#include <utility>
 
 #include "gridlu/lu.hpp"
 
@@ -15,14 +16,19 @@ inline void refuse_singular(const lu_result& lu) {
                                            " (0-based) is zero; no solution written");
 }
 
-// X[i, j] (X[i] when the right-hand side is a vector), 0-based.
+// An entry as the file's reader names it, 0-based: NAME[i, j], or NAME[i] for a vector.
+inline std::string entry_name(const std::string& dataset, std::pair<index_t, index_t> at,
+                              bool one_d) {
+  return dataset + "[" + std::to_string(at.first) +
+         (one_d ? "" : ", " + std::to_string(at.second)) + "]";
+}
+
 template <scalar T>
 void refuse_nonfinite_solution(const dist_matrix<T>& x, bool one_d) {
   if (const auto at = first_nonfinite(x))
     throw error(error_kind::numerical,
-                "X[" + std::to_string(at->first) +
-                    (one_d ? "" : ", " + std::to_string(at->second)) +
-                    "] is not finite (NaN or Inf): the solve overflowed, A being numerically "
+                entry_name("X", *at, one_d) +
+                    " is not finite (NaN or Inf): the solve overflowed, A being numerically "
                     "singular or badly scaled; no solution written");
 }
 

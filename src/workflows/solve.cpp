@@ -197,11 +197,6 @@ inputs open_inputs(const process_grid& grid, job& j) {
   return in;
 }
 
-std::string entry_name(const std::string& dataset, std::pair<index_t, index_t> at, bool one_d) {
-  return dataset + "[" + std::to_string(at.first) +
-         (one_d ? "" : ", " + std::to_string(at.second)) + "]";
-}
-
 template <scalar T>
 void refuse_nonfinite(const dist_matrix<T>& m, const std::string& dataset, const std::string& path,
                       bool one_d, bool transposed) {
@@ -466,6 +461,8 @@ private:
     dist_matrix<T> x(grid_, j_.n, j_.nrhs, j_.block);
     std::copy_n(b_.data(), b_.ld() * b_.local_cols(), x.data());
     r_.solve_seconds = timed(grid_, [&] { solve(a_, lu_.pivots, x, with); });
+    // Before A is read again: a non-finite X needs no figures.
+    refuse_nonfinite_solution(x, in_.rhs_1d());
     r_.check_seconds = timed(grid_, [&] {
       const auto from_factors = measure_factors(a_, lu_.pivots, with);
       // Refinement needs the factors and the matrix at once; otherwise the matrix is read
@@ -479,10 +476,10 @@ private:
       if (j_.refine) {
         r_.refined = refine(m, figures, a_, lu_.pivots, with, x, b_);
         errors = r_.refined->final;
+        refuse_nonfinite_solution(x, in_.rhs_1d());
       } else {
         errors = backward_errors(m, figures, x, b_, residual(m, x, b_));
       }
-      refuse_nonfinite_solution(x, in_.rhs_1d());
       r_.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
     });
     return x;
