@@ -37,6 +37,10 @@ template <scalar T>
 dist_matrix<wide_t<T>> residual(const dist_matrix<T>& m, const dist_matrix<T>& x,
                                 const dist_matrix<T>& b);
 
+// m x in T, m n x n and x n x k on one grid and block size.
+template <scalar T>
+dist_matrix<T> product(const dist_matrix<T>& m, const dist_matrix<T>& x);
+
 // Normwise and componentwise backward errors of each column of x as a solution of
 // m x = b, from its residual r and m's figures.
 template <scalar T>

@@ -82,4 +82,13 @@ template <scalar T>
 void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b,
            solve_with with = solve_with::a);
 
+// solve() with single-precision factors (narrow_t<T>) and T = double or complex<double>
+// right-hand sides, in T's arithmetic: each piece of the factors is widened just before
+// it is used, so they stay single in memory while the substitutions keep double's
+// accuracy. For at most b.block() right-hand sides (one process column); more is a
+// usage error. Collective over lu's grid.
+template <scalar T>
+void solve_widened(const dist_matrix<narrow_t<T>>& lu, std::span<const index_t> pivots,
+                   dist_matrix<T>& b, solve_with with = solve_with::a);
+
 }  // namespace gridlu

@@ -14,28 +14,32 @@ struct scalar_traits;
 template <>
 struct scalar_traits<float> {
   using real = float;
-  using wide = double;  // residuals are formed in this type
+  using wide = double;   // residuals are formed in this type
+  using narrow = float;  // mixed precision factors in this type
   static constexpr bool is_complex = false;
   static constexpr std::string_view name = "float32";
 };
 template <>
 struct scalar_traits<double> {
   using real = double;
-  using wide = double;  // residuals are formed in this type
+  using wide = double;   // residuals are formed in this type
+  using narrow = float;  // mixed precision factors in this type
   static constexpr bool is_complex = false;
   static constexpr std::string_view name = "float64";
 };
 template <>
 struct scalar_traits<std::complex<float>> {
   using real = float;
-  using wide = std::complex<double>;  // residuals are formed in this type
+  using wide = std::complex<double>;   // residuals are formed in this type
+  using narrow = std::complex<float>;  // mixed precision factors in this type
   static constexpr bool is_complex = true;
   static constexpr std::string_view name = "complex64";
 };
 template <>
 struct scalar_traits<std::complex<double>> {
   using real = double;
-  using wide = std::complex<double>;  // residuals are formed in this type
+  using wide = std::complex<double>;   // residuals are formed in this type
+  using narrow = std::complex<float>;  // mixed precision factors in this type
   static constexpr bool is_complex = true;
   static constexpr std::string_view name = "complex128";
 };
@@ -46,6 +50,9 @@ using real_t = typename scalar_traits<T>::real;
 // formed in it so that they neither overflow nor lose the digits being judged.
 template <class T>
 using wide_t = typename scalar_traits<T>::wide;
+// The single-precision type of the same kind.
+template <class T>
+using narrow_t = typename scalar_traits<T>::narrow;
 
 template <class T>
 concept scalar = requires {

@@ -1,6 +1,7 @@
 #include "gridlu/accuracy.hpp"
 
 #include <cmath>
+#include <functional>
 #include <limits>
 
 #include "accuracy/figures.hpp"
@@ -65,7 +66,8 @@ void add_product_spread(const dist_matrix<T>& m, const dist_matrix<T>& x, W alph
 
 // The same for x in one process column: m stays where it is and only x's block rows
 // travel, to the process column that holds the matching block column of m; each rank
-// sums its own products and the process rows add them up.
+// sums its own products and the process rows add them up. With f the identity, m's
+// blocks are used in place.
 template <scalar T, scalar W, class F>
 void add_product_few(const dist_matrix<T>& m, const dist_matrix<T>& x, W alpha, F&& f,
                      dist_matrix<W>& out) {
@@ -87,9 +89,17 @@ void add_product_few(const dist_matrix<T>& m, const dist_matrix<T>& x, W alpha, 
     if (grid.myrow() == pr)
       copy_block(jb, nrhs, xs.data() + x.layout().rows.local(j0), ld, piece.data(), jb);
     comm::broadcast(grid.col(), piece.data(), jb * nrhs, pr);
-    pack(rows, jb, m.at(0, inner.local(j0)), m.ld(), left, f);
-    blas::gemm(blas::op::none, blas::op::none, rows, nrhs, jb, W(1), left.data(), rows,
-               piece.data(), jb, W(1), sum.data(), ld);
+    const W* block = nullptr;
+    index_t block_ld = rows;
+    if constexpr (std::is_same_v<std::decay_t<F>, std::identity>) {
+      block = m.at(0, inner.local(j0));
+      block_ld = m.ld();
+    } else {
+      pack(rows, jb, m.at(0, inner.local(j0)), m.ld(), left, f);
+      block = left.data();
+    }
+    blas::gemm_few(blas::op::none, rows, nrhs, jb, W(1), block, block_ld, piece.data(), jb, W(1),
+                   sum.data(), ld);
   }
   comm::sum(grid.row(), sum.data(), ld * nrhs);
   if (grid.mycol() != home) return;
@@ -159,9 +169,19 @@ dist_matrix<wide_t<T>> residual(const dist_matrix<T>& m, const dist_matrix<T>& x
   using W = wide_t<T>;
   dist_matrix<W> r(b.grid(), b.rows(), b.cols(), b.block());
   std::copy_n(b.data(), b.ld() * b.local_cols(), r.data());
-  add_product(
-      m, x, W(-1), [](T v) { return static_cast<W>(v); }, r);
+  if constexpr (std::is_same_v<T, W>)
+    add_product(m, x, W(-1), std::identity{}, r);
+  else
+    add_product(
+        m, x, W(-1), [](T v) { return static_cast<W>(v); }, r);
   return r;
+}
+
+template <scalar T>
+dist_matrix<T> product(const dist_matrix<T>& m, const dist_matrix<T>& x) {
+  dist_matrix<T> y(x.grid(), m.rows(), x.cols(), x.block());
+  add_product(m, x, T(1), std::identity{}, y);
+  return y;
 }
 
 template <scalar T>
@@ -218,6 +238,7 @@ refinement refine(const dist_matrix<T>& m, const matrix_figures& mf, const dist_
                                              solve_with);                                     \
   template dist_matrix<wide_t<T>> residual<T>(const dist_matrix<T>&, const dist_matrix<T>&,   \
                                               const dist_matrix<T>&);                         \
+  template dist_matrix<T> product<T>(const dist_matrix<T>&, const dist_matrix<T>&);           \
   template solution_figures backward_errors<T>(const dist_matrix<T>&, const matrix_figures&,  \
                                                const dist_matrix<T>&, const dist_matrix<T>&,  \
                                                const dist_matrix<wide_t<T>>&);                \

@@ -1,5 +1,6 @@
 // The `gridlu` command: subcommands, options, what rank 0 prints, exit codes. The one
 // place that maps the library's error kinds to process exit codes.
+#include <sys/resource.h>
 #include <unistd.h>
 
 #include <CLI/CLI.hpp>
@@ -82,6 +83,16 @@ void add_require_digits(CLI::App* cmd, std::int64_t& digits) {
       ->check(CLI::Range(0, 20));
 }
 
+void add_precision(CLI::App* cmd, std::string& precision, const char* default_text) {
+  cmd->add_option("--precision", precision,
+                  std::string("double; mixed: factor a single-precision copy and refine X in "
+                              "double (float64 and complex128; memory 1.5 times A); "
+                              "mixed-krylov: the same with GMRES corrections, for worse "
+                              "conditioned systems (default: ") +
+                      default_text + ")")
+      ->check(CLI::IsMember({"double", "mixed", "mixed-krylov"}));
+}
+
 void add_verbosity(CLI::App* cmd, common_options& o) {
   cmd->add_flag("--quiet", o.quiet, "print nothing but errors");
   cmd->add_flag("--progress", o.progress,
@@ -99,8 +110,11 @@ process_grid make_grid(const common_options& o) {
 void write_report(const process_grid& g, const std::string& path, nlohmann::json j,
                   io::existing policy = io::existing::replace) {
   if (path.empty() || g.rank() != 0) return;
+  rusage usage{};
+  getrusage(RUSAGE_SELF, &usage);
   j.update({{"grid", {g.prows(), g.pcols()}},
             {"ranks", g.size()},
+            {"peak_resident_bytes_rank0", 1024.0 * static_cast<double>(usage.ru_maxrss)},
             {"version", gridlu::version},
             {"versions",
              {{"gridlu", gridlu::version},
@@ -187,6 +201,28 @@ void print_stopped(const process_grid& grid, const workflows::solve_result& r) {
   std::printf("resume with: %s\n", resume_command(grid, j.checkpoint_dir).c_str());
 }
 
+// What mixed precision did, when it was asked for.
+void print_precision(const workflows::precision_outcome& p, double u) {
+  if (p.asked == "double") return;
+  if (p.used == "double") {
+    std::printf("  precision  %s gave way to a double factorization: %s", p.asked.c_str(),
+                p.fallback.c_str());
+    if (p.single_factor_seconds > 0)
+      std::printf(" (the single-precision factorization took %.2f s)", p.single_factor_seconds);
+    std::printf("\n");
+    return;
+  }
+  const auto& m = *p.mixed;
+  int inner = 0;
+  for (const int k : m.inner_iterations) inner += k;
+  std::printf(
+      "  precision  %s: single-precision factors, %d correction(s)%s; normwise backward "
+      "error %.3g u -> %.3g u\n",
+      p.asked.c_str(), m.iterations,
+      p.asked == "mixed-krylov" ? (" (" + std::to_string(inner) + " GMRES steps)").c_str() : "",
+      m.normwise_backward_errors.front() / u, m.normwise_backward_errors.back() / u);
+}
+
 // The trust figures, the same words for every command that solves.
 void print_trust(const trust_report& t, const std::optional<refinement>& refined) {
   const double u = t.unit_roundoff;
@@ -235,6 +271,7 @@ void print_solved(const process_grid& grid, const workflows::solve_result& r) {
         j.checkpoint_dir.c_str(), static_cast<long long>(r.checkpoints),
         static_cast<long long>(r.restarts), r.factor_seconds_total,
         r.state_removed ? "; working state removed, X is written" : "");
+  print_precision(r.precision, r.trust.unit_roundoff);
   print_trust(r.trust, r.refined);
 }
 
@@ -285,10 +322,41 @@ int run_read_bench(const common_options& c, const workflows::read_bench_options&
   return 0;
 }
 
+double unit_roundoff_of(const std::string& type) {
+  double u = 0;
+  dispatch_scalar(type, [&]<class T>(T) { u = unit_roundoff<T>(); });
+  return u;
+}
+
+// A mixed-precision bench: the time to a refined X and what the refinement did.
+void print_mixed_bench(const process_grid& grid, const workflows::bench_options& o,
+                       const workflows::bench_result& r) {
+  std::printf(
+      "gridlu bench: %s solve of a random %s system, n = %lld, one right-hand side, block %lld, "
+      "grid %dx%d\n",
+      o.precision.c_str(), o.type.c_str(), static_cast<long long>(o.n),
+      static_cast<long long>(o.block), grid.prows(), grid.pcols());
+  std::printf(
+      "  time to X     %10.3f s   (median of %zu: single-precision copy, factors, "
+      "refinement)\n",
+      r.solve_median, r.solve_seconds.size());
+  std::printf("  GEMM rate     %10.2f GFLOP/s in single precision, %.2f in double (ratio %.2f)\n",
+              r.narrow_gemm_gflops, r.gemm_gflops, r.narrow_gemm_gflops / r.gemm_gflops);
+  const double u = unit_roundoff_of(o.type);
+  print_precision(r.precision, u);
+  if (r.precision.fallback.empty())
+    std::printf("  accuracy      normwise backward error %.2f u\n", r.normwise_backward_error / u);
+}
+
 int run_bench(const common_options& c, const workflows::bench_options& o) {
   const auto grid = make_grid(c);
   const auto r = workflows::bench(grid, o);
   if (grid.rank() != 0) return 0;
+  if (workflows::is_mixed(o.precision)) {
+    print_mixed_bench(grid, o, r);
+    write_report(grid, c.report, r.json(o));
+    return 0;
+  }
   std::printf(
       "gridlu bench: LU of a random %s matrix, n = %lld, block %lld, look-ahead %d, grid %dx%d\n",
       o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.block), o.lookahead,
@@ -299,6 +367,10 @@ int run_bench(const common_options& c, const workflows::bench_options& o) {
   std::printf("  GEMM rate     %10.2f GFLOP/s   (order %lld on all %d ranks at once)\n",
               r.gemm_gflops, static_cast<long long>(r.gemm_order), grid.size());
   std::printf("  LU / GEMM     %10.3f\n", r.gflops / r.gemm_gflops);
+  std::printf(
+      "  time to X     %10.3f s   (median: factors and a solve with one right-hand side; "
+      "normwise backward error %.2f u)\n",
+      r.solve_median, r.normwise_backward_error / unit_roundoff_of(o.type));
   print_phases(r.phases);
   write_report(grid, c.report, r.json(o));
   return 0;
@@ -316,6 +388,7 @@ int run_demo(const common_options& c, const workflows::demo_options& o, std::int
   std::printf("  generate  %9.3f s\n  factor    %9.3f s   %.2f GFLOP/s\n", r.generate_seconds,
               r.factor_seconds, r.gflops);
   std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds, r.check_seconds);
+  print_precision(r.precision, r.trust.unit_roundoff);
   print_trust(r.trust, std::nullopt);
   std::fflush(stdout);
   write_report(grid, c.report, r.json(o));
@@ -344,6 +417,7 @@ subcommand add_bench(CLI::App& app, double) {
   cmd->add_option("--seed", o->seed, "seed of the generated matrix")->capture_default_str();
   cmd->add_option("--repeat", o->repeat, "factorizations to time (median is reported)")
       ->capture_default_str();
+  add_precision(cmd, o->precision, "double");
   cmd->add_option("--read", read->path,
                   "instead: time reading a dataset of this HDF5 file into the grid");
   cmd->add_option("--dataset", read->dataset, "with --read: the dataset")->capture_default_str();
@@ -373,6 +447,7 @@ subcommand add_demo(CLI::App& app, double) {
   cmd->add_option("--type", o->type, "float32, float64, complex64 or complex128")
       ->capture_default_str();
   cmd->add_option("--seed", o->seed, "seed of the generated system")->capture_default_str();
+  add_precision(cmd, o->precision, "double");
   auto digits = std::make_shared<std::int64_t>(0);
   add_require_digits(cmd, *digits);
   add_common(cmd, *c);
@@ -404,6 +479,7 @@ subcommand add_solve(CLI::App& app, double started) {
       ->excludes(transpose);
   cmd->add_flag("--refine", o->refine,
                 "refine X iteratively in the working precision (keeps a second copy of A)");
+  add_precision(cmd, o->precision, "double");
   add_require_digits(cmd, o->require_digits);
   cmd->add_option("--save-factors", o->save_factors, "also write the LU factors to this file");
   cmd->add_option("--factors", o->factors, "solve with factors saved earlier instead of factoring");
@@ -426,6 +502,7 @@ subcommand add_solve(CLI::App& app, double started) {
       "Examples:\n"
       "  mpiexec -n 4 gridlu solve plate.h5 --out charges.h5\n"
       "  mpiexec -n 4 gridlu solve plate.h5 --out x.h5 --save-factors plate-lu.h5\n"
+      "  mpiexec -n 4 gridlu solve body.h5 --out x.h5 --precision mixed\n"
       "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out "
       "x2.h5\n"
       "  mpiexec -n 64 gridlu solve big.h5 --out x.h5 --checkpoint ckpt --checkpoint-every 30 "
@@ -462,6 +539,7 @@ subcommand add_resume(CLI::App& app, double started) {
       ->check(CLI::NonNegativeNumber);
   cmd->add_option("--stop-after", *stop_after, "time budget in minutes")
       ->check(CLI::NonNegativeNumber);
+  add_precision(cmd, o->precision, "the job's");
   add_require_digits(cmd, o->require_digits);
   add_verbosity(cmd, *c);
   add_common(cmd, *c);
@@ -552,6 +630,9 @@ void checkpoint_summary(const std::string& dir) {
   std::printf("solve      %s -> %s (%s, n = %lld, %lld right-hand side(s))\n", j.input.c_str(),
               j.output.c_str(), j.type.c_str(), static_cast<long long>(j.n),
               static_cast<long long>(j.nrhs));
+  if (j.precision != "double")
+    std::printf("precision  %s%s%s\n", j.precision.c_str(),
+                j.fallback.empty() ? "" : ", gave way to double: ", j.fallback.c_str());
   const auto state = std::filesystem::path(dir) / "checkpoint.h5";
   const bool finished =
       workflows::marks_completion(file_text(std::filesystem::path(dir) / "complete.json"), j);

@@ -1,6 +1,8 @@
 // Solves with the distributed LU factors of A, for many right-hand sides: with A, its
 // transpose or its conjugate transpose.
 #include <algorithm>
+#include <string>
+#include <type_traits>
 #include <utility>
 
 #include "factor/interchange.hpp"
@@ -110,11 +112,12 @@ void sweep_transposed(const dist_matrix<T>& lu, dist_matrix<T>& b, triangle part
 // b, as the sweeps above do, would cost a pass of the whole matrix over the network per
 // solve. Here the factors stay in place and only pieces of b travel: each process row
 // keeps its rows of b on every rank of the row (w), partial products are formed where
-// the factors are and summed onto the block being solved.
-template <scalar T>
+// the factors are and summed onto the block being solved. Factors of type F are applied
+// in T's arithmetic (solve_widened); with F = T their memory is used as it is.
+template <scalar F, scalar T>
 class few_columns {
 public:
-  few_columns(const dist_matrix<T>& lu, const dist_matrix<T>& b)
+  few_columns(const dist_matrix<F>& lu, const dist_matrix<T>& b)
       : lu_(lu), nrhs_(b.cols()), ld_(std::max<index_t>(1, lu.local_rows())) {
     w_.assign(static_cast<std::size_t>(ld_ * nrhs_), T(0));
     if (lu.grid().mycol() == home(b))
@@ -135,7 +138,7 @@ public:
     const index_t blocks = lu_.layout().rows.block_count();
     std::vector<T> acc(w_.size(), T(0)), piece;
     for (index_t s = 0; s < blocks; ++s) {
-      const block_column<T> at(lu_, part == triangle::lower ? s : blocks - 1 - s);
+      const block_column<F> at(lu_, part == triangle::lower ? s : blocks - 1 - s);
       const index_t jb = at.jb;
       piece.resize(static_cast<std::size_t>(jb * nrhs_));
       if (grid.myrow() == at.pr) {
@@ -149,8 +152,9 @@ public:
       if (grid.mycol() != at.pc) continue;
       comm::broadcast(grid.col(), piece.data(), jb * nrhs_, at.pr);
       const auto [first, count] = at.off_diagonal(part);
-      blas::gemm(op::none, op::none, count, nrhs_, jb, T(1), lu_.at(first, at.lck), lu_.ld(),
-                 piece.data(), jb, T(1), acc.data() + first, ld_);
+      const auto [l, ldl] = widened(first, at.lck, count, jb);
+      blas::gemm_few(op::none, count, nrhs_, jb, T(1), l, ldl, piece.data(), jb, T(1),
+                     acc.data() + first, ld_);
     }
     share_solved_blocks();
   }
@@ -163,13 +167,14 @@ public:
     const index_t blocks = lu_.layout().rows.block_count();
     std::vector<T> piece;
     for (index_t s = 0; s < blocks; ++s) {
-      const block_column<T> at(lu_, part == triangle::upper ? s : blocks - 1 - s);
+      const block_column<F> at(lu_, part == triangle::upper ? s : blocks - 1 - s);
       const index_t jb = at.jb;
       piece.assign(static_cast<std::size_t>(jb * nrhs_), T(0));
       if (grid.mycol() == at.pc) {
         const auto [first, count] = at.off_diagonal(part);
-        blas::gemm(how, op::none, jb, nrhs_, count, T(1), lu_.at(first, at.lck), lu_.ld(),
-                   w_.data() + first, ld_, T(0), piece.data(), jb);
+        const auto [f, ldf] = widened(first, at.lck, count, jb);
+        blas::gemm_few(how, jb, nrhs_, count, T(1), f, ldf, w_.data() + first, ld_, T(0),
+                       piece.data(), jb);
         comm::sum(grid.col(), piece.data(), jb * nrhs_);
         if (grid.myrow() == at.pr) {
           for (index_t c = 0; c < nrhs_; ++c)
@@ -188,10 +193,25 @@ private:
   static int home(const dist_matrix<T>& b) { return b.layout().cols.block_owner(0); }
   T& row(index_t li, index_t c) { return w_[li + c * ld_]; }
 
-  void solve_diagonal(const block_column<T>& at, triangle part, op how, std::vector<T>& piece) {
+  // The local rows x cols block of the factors at (li, lj), as T with its leading
+  // dimension: converted into scratch_ when F is narrower, so the factors stay narrow
+  // in memory and the substitutions run in T's precision.
+  std::pair<const T*, index_t> widened(index_t li, index_t lj, index_t rows, index_t cols) {
+    if constexpr (std::is_same_v<F, T>) {
+      return {lu_.at(li, lj), lu_.ld()};
+    } else {
+      scratch_.resize(static_cast<std::size_t>(rows * cols));
+      for (index_t c = 0; c < cols; ++c)
+        std::copy_n(lu_.at(li, lj + c), rows, scratch_.data() + c * rows);
+      return {scratch_.data(), rows};
+    }
+  }
+
+  void solve_diagonal(const block_column<F>& at, triangle part, op how, std::vector<T>& piece) {
     const bool unit = part == triangle::lower;
-    blas::trsm_left(part, unit ? diagonal::unit : diagonal::non_unit, how, at.jb, nrhs_, T(1),
-                    lu_.at(at.lrk, at.lck), lu_.ld(), piece.data(), at.jb);
+    const auto [d, ldd] = widened(at.lrk, at.lck, at.jb, at.jb);
+    blas::trsm_left(part, unit ? diagonal::unit : diagonal::non_unit, how, at.jb, nrhs_, T(1), d,
+                    ldd, piece.data(), at.jb);
     copy_block(at.jb, nrhs_, piece.data(), at.jb, w_.data() + at.lrk, ld_);
   }
 
@@ -210,34 +230,37 @@ private:
     comm::sum(grid.row(), w_.data(), ld_ * nrhs_);
   }
 
-  const dist_matrix<T>& lu_;
+  const dist_matrix<F>& lu_;
   index_t nrhs_, ld_;
-  std::vector<T> w_;
+  std::vector<T> w_, scratch_;
 };
 
-}  // namespace
-
-template <scalar T>
-void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b,
-           solve_with with) {
+// solve() and solve_widened(): factors of type F, right-hand sides and arithmetic of T.
+template <scalar F, scalar T>
+void solve_with_factors(const dist_matrix<F>& lu, std::span<const index_t> pivots,
+                        dist_matrix<T>& b, solve_with with, const char* name) {
   if (&b.grid() != &lu.grid() || b.rows() != lu.rows() || b.block() != lu.block() ||
       static_cast<index_t>(pivots.size()) != lu.rows())
     throw error(error_kind::usage,
-                "solve: right-hand sides must match the factors' order, grid and block size");
+                std::string(name) +
+                    ": right-hand sides must match the factors' order, grid and block size");
   const detail::column_range all[] = {{0, b.local_cols()}};
   detail::interchange_buffers<T> buffers;
   const auto& rows = b.layout().rows;
   // Up to a block of right-hand sides lie in one process column.
   const bool few = b.cols() <= b.block();
+  constexpr bool same = std::is_same_v<F, T>;
+  if (!same && !few)  // the sweeps move whole factor blocks and work in F's type
+    throw error(error_kind::usage, std::string(name) + ": at most a block of right-hand sides");
   if (with == solve_with::a) {
     // P A = L U: x = inv(U) inv(L) P b.
     detail::interchange_rows(b, 0, pivots, all, buffers);
     if (few) {
-      few_columns<T> w(lu, b);
+      few_columns<F, T> w(lu, b);
       w.fan_in(triangle::lower);
       w.fan_in(triangle::upper);
       w.store(b);
-    } else {
+    } else if constexpr (same) {
       sweep(lu, b, triangle::lower);
       sweep(lu, b, triangle::upper);
     }
@@ -246,11 +269,11 @@ void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matri
   // A^T = U^T L^T P: x = P^T inv(L^T) inv(U^T) b, and alike with conjugates.
   const op how = with == solve_with::transpose ? op::transpose : op::adjoint;
   if (few) {
-    few_columns<T> w(lu, b);
+    few_columns<F, T> w(lu, b);
     w.fan_out(triangle::upper, how);
     w.fan_out(triangle::lower, how);
     w.store(b);
-  } else {
+  } else if constexpr (same) {
     sweep_transposed(lu, b, triangle::upper, how);
     sweep_transposed(lu, b, triangle::lower, how);
   }
@@ -258,10 +281,30 @@ void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matri
                            all, buffers);
 }
 
+}  // namespace
+
+template <scalar T>
+void solve(const dist_matrix<T>& lu, std::span<const index_t> pivots, dist_matrix<T>& b,
+           solve_with with) {
+  solve_with_factors(lu, pivots, b, with, "solve");
+}
+
+template <scalar T>
+void solve_widened(const dist_matrix<narrow_t<T>>& lu, std::span<const index_t> pivots,
+                   dist_matrix<T>& b, solve_with with) {
+  solve_with_factors(lu, pivots, b, with, "solve_widened");
+}
+
 #define INSTANTIATE(T)                                                                     \
   template void solve<T>(const dist_matrix<T>&, std::span<const index_t>, dist_matrix<T>&, \
                          solve_with);
 GRIDLU_FOR_EACH_SCALAR(INSTANTIATE)
 #undef INSTANTIATE
+
+template void solve_widened<double>(const dist_matrix<float>&, std::span<const index_t>,
+                                    dist_matrix<double>&, solve_with);
+template void solve_widened<std::complex<double>>(const dist_matrix<std::complex<float>>&,
+                                                  std::span<const index_t>,
+                                                  dist_matrix<std::complex<double>>&, solve_with);
 
 }  // namespace gridlu

@@ -6,6 +6,7 @@
 
 #include <algorithm>
 #include <complex>
+#include <vector>
 
 namespace gridlu::blas {
 namespace {
@@ -53,6 +54,46 @@ void gemm<cd>(op opa, op opb, index_t m, index_t n, index_t k, cd alpha, const c
   if (empty(m, n)) return;
   cblas_zgemm(CblasColMajor, to_cblas(opa), to_cblas(opb), bi(m), bi(n), bi(k), &alpha, a, ld(lda),
               b, ld(ldb), &beta, c, ld(ldc));
+}
+
+namespace {
+// y = alpha op(a) x + beta y, a stored rows x cols.
+template <class T>
+void gemv(op opa, index_t rows, index_t cols, T alpha, const T* a, index_t lda, const T* x, T beta,
+          T* y);
+template <>
+void gemv<float>(op opa, index_t rows, index_t cols, float alpha, const float* a, index_t lda,
+                 const float* x, float beta, float* y) {
+  cblas_sgemv(CblasColMajor, to_cblas(opa), bi(rows), bi(cols), alpha, a, ld(lda), x, 1, beta, y,
+              1);
+}
+template <>
+void gemv<double>(op opa, index_t rows, index_t cols, double alpha, const double* a, index_t lda,
+                  const double* x, double beta, double* y) {
+  cblas_dgemv(CblasColMajor, to_cblas(opa), bi(rows), bi(cols), alpha, a, ld(lda), x, 1, beta, y,
+              1);
+}
+template <>
+void gemv<cf>(op opa, index_t rows, index_t cols, cf alpha, const cf* a, index_t lda, const cf* x,
+              cf beta, cf* y) {
+  cblas_cgemv(CblasColMajor, to_cblas(opa), bi(rows), bi(cols), &alpha, a, ld(lda), x, 1, &beta, y,
+              1);
+}
+template <>
+void gemv<cd>(op opa, index_t rows, index_t cols, cd alpha, const cd* a, index_t lda, const cd* x,
+              cd beta, cd* y) {
+  cblas_zgemv(CblasColMajor, to_cblas(opa), bi(rows), bi(cols), &alpha, a, ld(lda), x, 1, &beta, y,
+              1);
+}
+}  // namespace
+
+template <scalar T>
+void gemm_few(op opa, index_t m, index_t n, index_t k, T alpha, const T* a, index_t lda, const T* b,
+              index_t ldb, T beta, T* c, index_t ldc) {
+  if (n != 1) return gemm(opa, op::none, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc);
+  if (m <= 0) return;
+  const bool plain = opa == op::none;
+  gemv(opa, plain ? m : k, plain ? k : m, alpha, a, lda, b, beta, c);
 }
 
 template <>
@@ -173,6 +214,46 @@ int lapack_getrs<cd>(op how, index_t n, index_t nrhs, const cd* lu, index_t lda,
                         reinterpret_cast<const lapack_complex_double*>(lu), ld(lda), ipiv,
                         reinterpret_cast<lapack_complex_double*>(b), ld(ldb));
 }
+
+template <>
+int lapack_qr_factor_q<float>(index_t n, float* a, index_t lda) {
+  std::vector<float> tau(static_cast<std::size_t>(n));
+  const int info = LAPACKE_sgeqrf(LAPACK_COL_MAJOR, bi(n), bi(n), a, ld(lda), tau.data());
+  return info != 0 ? info
+                   : LAPACKE_sorgqr(LAPACK_COL_MAJOR, bi(n), bi(n), bi(n), a, ld(lda), tau.data());
+}
+template <>
+int lapack_qr_factor_q<double>(index_t n, double* a, index_t lda) {
+  std::vector<double> tau(static_cast<std::size_t>(n));
+  const int info = LAPACKE_dgeqrf(LAPACK_COL_MAJOR, bi(n), bi(n), a, ld(lda), tau.data());
+  return info != 0 ? info
+                   : LAPACKE_dorgqr(LAPACK_COL_MAJOR, bi(n), bi(n), bi(n), a, ld(lda), tau.data());
+}
+template <>
+int lapack_qr_factor_q<cf>(index_t n, cf* a, index_t lda) {
+  std::vector<cf> tau(static_cast<std::size_t>(n));
+  auto* la = reinterpret_cast<lapack_complex_float*>(a);
+  auto* lt = reinterpret_cast<lapack_complex_float*>(tau.data());
+  const int info = LAPACKE_cgeqrf(LAPACK_COL_MAJOR, bi(n), bi(n), la, ld(lda), lt);
+  return info != 0 ? info : LAPACKE_cungqr(LAPACK_COL_MAJOR, bi(n), bi(n), bi(n), la, ld(lda), lt);
+}
+template <>
+int lapack_qr_factor_q<cd>(index_t n, cd* a, index_t lda) {
+  std::vector<cd> tau(static_cast<std::size_t>(n));
+  auto* la = reinterpret_cast<lapack_complex_double*>(a);
+  auto* lt = reinterpret_cast<lapack_complex_double*>(tau.data());
+  const int info = LAPACKE_zgeqrf(LAPACK_COL_MAJOR, bi(n), bi(n), la, ld(lda), lt);
+  return info != 0 ? info : LAPACKE_zungqr(LAPACK_COL_MAJOR, bi(n), bi(n), bi(n), la, ld(lda), lt);
+}
+
+#define INSTANTIATE(T)                                                                     \
+  template void gemm_few<T>(op, index_t, index_t, index_t, T, const T*, index_t, const T*, \
+                            index_t, T, T*, index_t);
+INSTANTIATE(float)
+INSTANTIATE(double)
+INSTANTIATE(cf)
+INSTANTIATE(cd)
+#undef INSTANTIATE
 
 std::string library_version() { return openblas_get_config(); }
 

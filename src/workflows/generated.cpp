@@ -44,20 +44,63 @@ double gemm_rate(const process_grid& grid, index_t order) {
   return median(rates);
 }
 
+// One right-hand side for the time to X, of the bench's seed.
 template <scalar T>
-bench_result bench_typed(const process_grid& grid, const bench_options& o) {
-  bench_result r;
-  // GEMM first: its operands are freed before the matrix exists, so they do not add to
-  // the peak memory of the run.
-  r.gemm_order = std::min<index_t>(o.n, 2048);
-  r.gemm_gflops = gemm_rate<T>(grid, r.gemm_order);
-  dist_matrix<T> a(grid, o.n, o.n, o.block);
+void fill_bench_rhs(const bench_options& o, dist_matrix<T>& b) {
+  b.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); });
+}
+
+// The worst normwise backward error of x as a solution of a x = b.
+template <scalar T>
+double normwise_error(const dist_matrix<T>& a, const dist_matrix<T>& x, const dist_matrix<T>& b) {
+  return worst_of(backward_errors(a, measure_matrix(a), x, b, residual(a, x, b)).normwise);
+}
+
+refinement_method method_of(const std::string& precision) {
+  return precision == "mixed-krylov" ? refinement_method::krylov : refinement_method::classical;
+}
+
+// Mixed precision on a system held in memory (a stays intact): `single` receives the
+// single-precision factors, x the solution of b, p what happened. Returns the pivots, or
+// nothing when mixed precision gave way to double.
+template <scalar T>
+std::optional<std::vector<index_t>> mixed_in_memory(const dist_matrix<T>& a,
+                                                    dist_matrix<narrow_t<T>>& single,
+                                                    const dist_matrix<T>& b, dist_matrix<T>& x,
+                                                    int lookahead, precision_outcome& p) {
+  std::copy_n(b.data(), b.ld() * b.local_cols(), x.data());
+  lu_options lo;
+  lo.lookahead = lookahead;
+  auto out = solve_mixed(a, single, x, method_of(p.asked), lo);
+  p.mixed = std::move(out.refinement);
+  if (!p.mixed->converged) {
+    p.fallback = p.mixed->why;
+    return std::nullopt;
+  }
+  p.used = p.asked;
+  return std::move(out.factors.pivots);
+}
+
+// Double precision: factor (timed alone, and with the solve as the time to X), `repeat`
+// times, and A generated again for the last X's backward error.
+template <scalar T>
+void bench_double(const process_grid& grid, const bench_options& o, bench_result& r) {
+  dist_matrix<T> a(grid, o.n, o.n, o.block), b(grid, o.n, 1, o.block), x(grid, o.n, 1, o.block);
+  const auto fill_a = [&] {
+    a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
+  };
+  fill_bench_rhs(o, b);
   std::vector<lu_phases> phases;
   lu_options lo;
   lo.lookahead = o.lookahead;
   for (int rep = 0; rep < o.repeat; ++rep) {
-    a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
-    r.factor_seconds.push_back(timed(grid, [&] { phases.push_back(factor(a, lo).phases); }));
+    fill_a();
+    std::copy_n(b.data(), b.ld() * b.local_cols(), x.data());
+    lu_result lu;
+    r.factor_seconds.push_back(timed(grid, [&] { lu = factor(a, lo); }));
+    phases.push_back(lu.phases);
+    r.solve_seconds.push_back(r.factor_seconds.back() +
+                              timed(grid, [&] { solve(a, lu.pivots, x); }));
   }
   r.factor_median = median(r.factor_seconds);
   const auto at_median =
@@ -65,7 +108,64 @@ bench_result bench_typed(const process_grid& grid, const bench_options& o) {
   r.phases = slowest(
       grid, phases[at_median == r.factor_seconds.end() ? 0 : at_median - r.factor_seconds.begin()]);
   r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_median * 1e-9;
+  fill_a();
+  r.normwise_backward_error = normwise_error(a, x, b);
+}
+
+// Mixed precision: A stays; each run copies it to single precision, factors and refines.
+template <scalar T>
+void bench_mixed(const process_grid& grid, const bench_options& o, bench_result& r) {
+  r.narrow_gemm_gflops = gemm_rate<narrow_t<T>>(grid, r.gemm_order);
+  dist_matrix<T> a(grid, o.n, o.n, o.block), b(grid, o.n, 1, o.block), x(grid, o.n, 1, o.block);
+  dist_matrix<narrow_t<T>> single(grid, o.n, o.n, o.block);  // allocated once, as A
+  a.fill([&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); });
+  fill_bench_rhs(o, b);
+  for (int rep = 0; rep < o.repeat; ++rep) {
+    r.precision = {};
+    r.precision.asked = o.precision;
+    r.solve_seconds.push_back(
+        timed(grid, [&] { mixed_in_memory(a, single, b, x, o.lookahead, r.precision); }));
+    if (!r.precision.fallback.empty()) return;  // x is not an answer: nothing to time
+  }
+  r.normwise_backward_error = normwise_error(a, x, b);
+}
+
+template <scalar T>
+bench_result bench_typed(const process_grid& grid, const bench_options& o) {
+  bench_result r;
+  // GEMM first: its operands are freed before the matrix exists, so they do not add to
+  // the peak memory of the run.
+  r.gemm_order = std::min<index_t>(o.n, 2048);
+  r.gemm_gflops = gemm_rate<T>(grid, r.gemm_order);
+  if constexpr (!std::is_same_v<narrow_t<T>, T>)
+    if (is_mixed(o.precision)) {
+      bench_mixed<T>(grid, o, r);
+      r.solve_median = median(r.solve_seconds);
+      return r;
+    }
+  bench_double<T>(grid, o, r);
+  r.solve_median = median(r.solve_seconds);
   return r;
+}
+
+// Mixed precision in the demo: true when X came from it, with its figures in r.
+template <scalar T>
+bool demo_mixed(const process_grid& grid, const demo_options& o, const dist_matrix<T>& a,
+                const dist_matrix<T>& b, dist_matrix<T>& x, demo_result& r) {
+  dist_matrix<narrow_t<T>> single(grid, o.n, o.n, o.block);
+  std::optional<std::vector<index_t>> pivots;
+  r.factor_seconds =
+      timed(grid, [&] { pivots = mixed_in_memory(a, single, b, x, o.lookahead, r.precision); });
+  if (!pivots) return false;
+  r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_seconds * 1e-9;
+  refuse_nonfinite_solution(x, false);
+  r.check_seconds = timed(grid, [&] {
+    const auto from_factors = measure_factors(single, *pivots, solve_with::a);
+    const auto figures = measure_matrix(a);
+    const auto errors = backward_errors(a, figures, x, b, residual(a, x, b));
+    r.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
+  });
+  return true;
 }
 
 template <scalar T>
@@ -80,10 +180,16 @@ demo_result demo_typed(const process_grid& grid, const demo_options& o) {
     b.fill(b_entry);
     x.fill(b_entry);
   });
+  r.precision.asked = o.precision;
+  if constexpr (!std::is_same_v<narrow_t<T>, T>)
+    if (is_mixed(o.precision)) {
+      if (demo_mixed(grid, o, a, b, x, r)) return r;
+      x.fill(b_entry);  // a double factorization after all
+    }
   lu_result lu;
   lu_options lo;
   lo.lookahead = o.lookahead;
-  r.factor_seconds = timed(grid, [&] { lu = factor(a, lo); });
+  r.factor_seconds += timed(grid, [&] { lu = factor(a, lo); });
   refuse_singular(lu);
   r.gflops = lu_flops<T>(static_cast<double>(o.n)) / r.factor_seconds * 1e-9;
   r.solve_seconds = timed(grid, [&] { solve(a, lu.pivots, x); });
@@ -156,6 +262,7 @@ std::vector<std::pair<const char*, io::attribute>> system_attributes(const gener
 
 bench_result bench(const process_grid& grid, const bench_options& o) {
   check_sizes(o.n, o.block);
+  require_precision(o.precision, o.type);
   if (o.repeat < 1) throw error(error_kind::usage, "--repeat must be at least 1");
   return by_type<bench_result>(o.type, [&]<class T>(T) { return bench_typed<T>(grid, o); });
 }
@@ -182,6 +289,7 @@ read_bench_result bench_read(const process_grid& grid, const read_bench_options&
 
 demo_result demo(const process_grid& grid, const demo_options& o) {
   check_sizes(o.n, o.block);
+  require_precision(o.precision, o.type);
   if (o.nrhs < 1)
     throw error(error_kind::usage, "the number of right-hand sides must be at least 1");
   return by_type<demo_result>(o.type, [&]<class T>(T) { return demo_typed<T>(grid, o); });

@@ -17,7 +17,8 @@ nlohmann::json to_json(const job& j) {
 
 namespace {
 bool is_later_key(std::string_view key) {
-  return key == "solve_with" || key == "refine" || key == "require_digits";
+  return key == "solve_with" || key == "refine" || key == "require_digits" || key == "precision" ||
+         key == "fallback";
 }
 }  // namespace
 
@@ -45,9 +46,14 @@ job job_from_json(const std::string& text, const std::string& where) {
   });
   if (j.id.empty() || j.n < 1 || j.nrhs < 1 || j.block < 1 || j.lookahead < 0 || j.input.empty() ||
       j.output.empty() || !(j.checkpoint_every >= 0) || j.require_digits < 0 ||
-      (j.solve_with != "A" && j.solve_with != "A^T" && j.solve_with != "A^H"))
+      (j.solve_with != "A" && j.solve_with != "A^T" && j.solve_with != "A^H") ||
+      (j.precision != "double" && !is_mixed(j.precision)) || (j.refine && is_mixed(j.precision)))
     throw damaged("it records an impossible job");
   return j;
+}
+
+bool is_mixed(const std::string& precision) {
+  return precision == "mixed" || precision == "mixed-krylov";
 }
 
 void write_attributes(io::file& f, const std::string& object, const job& j) {
@@ -87,7 +93,8 @@ std::string new_job_id() {
 bool same_work(const job& a, const job& b) {
   return a.input == b.input && a.matrix_dataset == b.matrix_dataset && a.rhs_file == b.rhs_file &&
          a.rhs_dataset == b.rhs_dataset && a.column_major == b.column_major &&
-         a.solve_with == b.solve_with && a.output == b.output;
+         a.solve_with == b.solve_with && is_mixed(a.precision) == is_mixed(b.precision) &&
+         a.output == b.output;
 }
 
 }  // namespace gridlu::workflows

@@ -31,6 +31,12 @@ struct job {
   double checkpoint_every = 0;      // seconds; 0: only when stopping
   bool refine = false;              // iterative refinement of X in the working precision
   std::int64_t require_digits = 0;  // fewer trusted digits fail the run (X is still written)
+  // "double", or "mixed"/"mixed-krylov": single-precision factors of op(A), refined in
+  // double (gridlu/mixed.hpp).
+  std::string precision = "double";
+  // Why mixed precision gave way to a double factorization, once it has: a later run
+  // continues that one.
+  std::string fallback;
   // Outputs.
   std::string output, save_factors, checkpoint_dir;
 };
@@ -62,6 +68,8 @@ void for_each_field(J& j, F&& f) {
   f("checkpoint_every_seconds", j.checkpoint_every);
   f("refine", j.refine);
   f("require_digits", j.require_digits);
+  f("precision", j.precision);
+  f("fallback", j.fallback);
   f("output", j.output);
   f("save_factors", j.save_factors);
   f("checkpoint_dir", j.checkpoint_dir);
@@ -74,6 +82,9 @@ job job_from_json(const std::string& text, const std::string& where);
 
 // The job's fields as attributes of an HDF5 object (booleans as 0/1).
 void write_attributes(io::file& f, const std::string& object, const job& j);
+
+// True for "mixed" and "mixed-krylov".
+bool is_mixed(const std::string& precision);
 
 // True when a completion marker's text records this job (and not another) as finished.
 bool marks_completion(const std::string& marker, const job& j);

@@ -40,6 +40,22 @@ nlohmann::json trust_json(const trust_report& t) {
 
 }  // namespace
 
+nlohmann::json precision_json(const precision_outcome& p,
+                              const std::optional<refinement>& refined) {
+  nlohmann::json j = {{"precision", p.asked}, {"precision_used", p.used}, {"fallback", p.fallback}};
+  if (p.single_factor_seconds > 0) j["single_factor_seconds"] = p.single_factor_seconds;
+  if (p.mixed) {
+    j["refinement_iterations"] = p.mixed->iterations;
+    j["refinement_backward_errors"] = p.mixed->normwise_backward_errors;
+    j["refinement_residual_ratios"] = p.mixed->residual_ratios;
+    if (p.asked == "mixed-krylov") j["refinement_inner_iterations"] = p.mixed->inner_iterations;
+  } else {
+    j["refinement_iterations"] = refined ? refined->iterations : 0;
+    j["refinement_backward_errors"] = refined ? refined->normwise : std::vector<double>{};
+  }
+  return j;
+}
+
 nlohmann::json solve_result::json() const {
   nlohmann::json j = {{"command", "solve"},
                       {"job", to_json(what)},
@@ -72,6 +88,7 @@ nlohmann::json solve_result::json() const {
     j["status"] = "stopped";
     return j;
   }
+  j.update(precision_json(precision, refined));
   j.update(trust_json(trust));
   if (refined)
     j["refinement"] = {{"iterations", refined->iterations},
@@ -82,17 +99,28 @@ nlohmann::json solve_result::json() const {
 }
 
 nlohmann::json bench_result::json(const bench_options& o) const {
-  return {{"command", "bench"},
-          {"n", o.n},
-          {"block", o.block},
-          {"lookahead", o.lookahead},
-          {"type", o.type},
-          {"times", {{"factor", factor_median}, {"factor_runs", factor_seconds}}},
-          {"gflops", gflops},
-          {"gemm_gflops", gemm_gflops},
-          {"gemm_order", gemm_order},
-          {"ratio_to_gemm", gflops / gemm_gflops},
-          {"phases", phases_json(phases)}};
+  nlohmann::json j = {{"command", "bench"},
+                      {"n", o.n},
+                      {"block", o.block},
+                      {"lookahead", o.lookahead},
+                      {"type", o.type},
+                      {"times",
+                       {{"factor", factor_median},
+                        {"factor_runs", factor_seconds},
+                        {"to_solution", solve_median},
+                        {"to_solution_runs", solve_seconds}}},
+                      {"normwise_backward_error", normwise_backward_error},
+                      {"gemm_gflops", gemm_gflops},
+                      {"gemm_order", gemm_order}};
+  j.update(precision_json(precision));
+  if (is_mixed(o.precision)) {
+    j["narrow_gemm_gflops"] = narrow_gemm_gflops;
+    return j;
+  }
+  j["gflops"] = gflops;
+  j["ratio_to_gemm"] = gflops / gemm_gflops;
+  j["phases"] = phases_json(phases);
+  return j;
 }
 
 nlohmann::json read_bench_result::json(const read_bench_options& o) const {
@@ -118,6 +146,7 @@ nlohmann::json demo_result::json(const demo_options& o) const {
                         {"check", check_seconds}}},
                       {"gflops", gflops},
                       {"status", "solved"}};
+  j.update(precision_json(precision));
   j.update(trust_json(trust));
   return j;
 }

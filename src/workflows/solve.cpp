@@ -60,6 +60,14 @@ void check_options(const solve_options& o) {
     throw error(error_kind::usage, "the system must be A, A^T or A^H, not " + o.solve_with);
   if ((o.checkpoint_every > 0 || o.stop_after > 0) && o.checkpoint_dir.empty())
     throw error(error_kind::usage, "--checkpoint-every and --stop-after need --checkpoint DIR");
+  require_precision(o.precision, "float64");
+  if (is_mixed(o.precision) && (!o.factors.empty() || !o.save_factors.empty()))
+    throw error(error_kind::usage, "--precision " + o.precision +
+                                       " keeps its single-precision factors in memory only; "
+                                       "--factors and --save-factors go with --precision double");
+  if (is_mixed(o.precision) && o.refine)
+    throw error(error_kind::usage, "--precision " + o.precision +
+                                       " refines X already; --refine goes with --precision double");
 }
 
 job job_of(const solve_options& o) {
@@ -74,6 +82,7 @@ job job_of(const solve_options& o) {
   j.solve_with = o.solve_with;
   j.refine = o.refine;
   j.require_digits = o.require_digits;
+  j.precision = o.precision;
   j.block = o.block;
   j.lookahead = o.lookahead;
   j.force = o.force;
@@ -194,6 +203,7 @@ inputs open_inputs(const process_grid& grid, job& j) {
   j.input_mtime = a_id.mtime;
   j.rhs_size = b_id.size;
   j.rhs_mtime = b_id.mtime;
+  require_precision(j.precision, j.type);
   return in;
 }
 
@@ -206,6 +216,12 @@ void refuse_nonfinite(const dist_matrix<T>& m, const std::string& dataset, const
     throw error(error_kind::input, entry_name(dataset, *at, one_d) + " in " + path +
                                        " is not a finite number (NaN or Inf)");
   }
+}
+
+error changed(const std::string& dataset, const std::string& path) {
+  return error(error_kind::input, dataset + " in " + path +
+                                      " changed since the checkpoint was made; it cannot be "
+                                      "resumed");
 }
 
 // ---------------------------------------------------------------------------------------
@@ -393,6 +409,8 @@ public:
         a_(grid, j.n, j.n, j.block),
         b_(grid, j.n, j.nrhs, j.block) {
     r_.what = j;
+    r_.precision.asked = j.precision;
+    r_.precision.fallback = j.fallback;  // an earlier run's, continued
   }
 
   solve_result operator()() {
@@ -400,25 +418,21 @@ public:
     std::optional<io::file> factors;
     if (!j_.factors.empty()) factors.emplace(grid_, j_.factors, io::file::mode::read);
     if (factors) check_factors_file(*factors, j_);
-    const bool from_state = ck_ && ck_->dir.has_state();
-    r_.read_seconds = timed(grid_, [&] { read(factors ? &*factors : nullptr, from_state); });
-    if (!factors) {
-      if (!checkpointed_factor<T>(grid_, j_, run_, a_, ck_, r_)(lu_)) {
-        if (!ck_)
-          throw error(error_kind::stopped,
-                      "stopped on request (" + stopped_by() +
-                          ") before X was written; nothing was kept: a solve keeps its work "
-                          "only with --checkpoint DIR");
-        r_.what = j_;
-        r_.total_seconds = comm::wtime() - start;
-        return r_;
+    const saved state = saved_state();
+    r_.read_seconds = timed(grid_, [&] { read(factors ? &*factors : nullptr, state); });
+    std::optional<dist_matrix<T>> x;
+    if (is_mixed(j_.precision) && state != saved::working)
+      if (!try_mixed(state == saved::single, x)) return stopped(start);
+    if (!x) {
+      if (!factors) {
+        if (!checkpointed_factor<T>(grid_, j_, run_, a_, ck_, r_)(lu_)) return stopped(start);
+        refuse_singular(lu_);
+        if (!j_.save_factors.empty())
+          r_.write_seconds += timed(grid_, [&] { write_factors(grid_, j_, a_, lu_.pivots); });
       }
-      refuse_singular(lu_);
-      if (!j_.save_factors.empty())
-        r_.write_seconds += timed(grid_, [&] { write_factors(grid_, j_, a_, lu_.pivots); });
+      x.emplace(solve_and_check(factors ? &*factors : nullptr));
     }
-    dist_matrix<T> x = solve_and_check(factors ? &*factors : nullptr);
-    r_.write_seconds += timed(grid_, [&] { write_solution(x); });
+    r_.write_seconds += timed(grid_, [&] { write_solution(*x); });
     finish();
     r_.what = j_;
     r_.total_seconds = comm::wtime() - start;
@@ -426,20 +440,101 @@ public:
   }
 
 private:
-  void read(const io::file* factors, bool from_state) {
+  // A checkpoint's working matrix: of T, or the single-precision one of a mixed job.
+  enum class saved { none, working, single };
+
+  saved saved_state() const {
+    if (!ck_ || !ck_->dir.has_state()) return saved::none;
+    return ck_->dir.summary().type == scalar_traits<T>::name ? saved::working : saved::single;
+  }
+
+  solve_result stopped(double start) {
+    if (!ck_)
+      throw error(error_kind::stopped,
+                  "stopped on request (" + stopped_by() +
+                      ") before X was written; nothing was kept: a solve keeps its work only "
+                      "with --checkpoint DIR");
+    r_.what = j_;
+    r_.total_seconds = comm::wtime() - start;
+    return r_;
+  }
+
+  // Mixed precision: factor a single-precision copy of op(A) (held in a_ in double) and
+  // refine. Returns false when the run stopped with a checkpoint; x holds the answer
+  // unless mixed precision gave way, and then a_ is still op(A) for a double factorization.
+  bool try_mixed(bool from_state, std::optional<dist_matrix<T>>& x) {
+    using S = narrow_t<T>;
+    if constexpr (std::is_same_v<S, T>) {
+      throw error(error_kind::internal, "mixed precision reached a single-precision system");
+    } else {
+      dist_matrix<S> single(grid_, j_.n, j_.n, j_.block);
+      lu_result lu;
+      if (from_state) {
+        lu = ck_->dir.load(single);
+      } else if (!narrow_copy(a_, single)) {
+        fall_back(mixed_out_of_range);
+        return true;
+      }
+      if (!checkpointed_factor<S>(grid_, j_, run_, single, ck_, r_)(lu)) return false;
+      r_.precision.single_factor_seconds = r_.factor_seconds;
+      if (lu.first_zero_pivot >= 0) {
+        fall_back(mixed_zero_pivot(lu.first_zero_pivot));
+        return true;
+      }
+      const auto method =
+          j_.precision == "mixed-krylov" ? refinement_method::krylov : refinement_method::classical;
+      x.emplace(grid_, j_.n, j_.nrhs, j_.block);
+      r_.solve_seconds = timed(
+          grid_, [&] { r_.precision.mixed = refine_mixed(a_, single, lu.pivots, b_, *x, method); });
+      if (!r_.precision.mixed->converged) {
+        x.reset();
+        fall_back(r_.precision.mixed->why);
+        return true;
+      }
+      refuse_nonfinite_solution(*x, in_.rhs_1d());
+      r_.precision.used = j_.precision;
+      j_.fallback.clear();
+      r_.check_seconds = timed(grid_, [&] {
+        const auto from_factors = measure_factors(single, lu.pivots, solve_with::a);
+        const auto figures = measure_matrix(a_);
+        const auto errors = backward_errors(a_, figures, *x, b_, residual(a_, *x, b_));
+        r_.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
+      });
+      return true;
+    }
+  }
+
+  // Mixed precision gives way to a double factorization of op(A), said at once and
+  // recorded in the job, so that a later run continues that factorization.
+  void fall_back(const std::string& why) {
+    r_.precision.fallback = j_.fallback = why;
+    if (run_.notice) run_.notice("mixed precision gave way to double: " + why);
+    if (ck_) ck_->dir.record_job(to_json(j_).dump(2) + "\n");
+  }
+
+  // The system factored in double: A (its factors then answer op(A)), or in a mixed job
+  // op(A) itself, read as such.
+  solve_with factored_with() const {
+    return is_mixed(j_.precision) ? solve_with::a : system_of(j_);
+  }
+
+  void read(const io::file* factors, saved state) {
     if (factors) {
       factors->read("LU", a_);
       lu_.pivots = checked_pivots(*factors, j_.n);
       lu_.columns_done = j_.n;
       r_.refactored = false;
-    } else if (from_state) {
+    } else if (state == saved::working) {
       // The inputs must be the ones the checkpoint was made from.
       if (io::checksum_text(in_.input.checksum<T>(j_.matrix_dataset, j_.column_major)) !=
           j_.a_checksum)
-        throw error(error_kind::input, j_.matrix_dataset + " in " + j_.input +
-                                           " changed since the checkpoint was made; it cannot "
-                                           "be resumed");
+        throw changed(j_.matrix_dataset, j_.input);
       lu_ = ck_->dir.load(a_);
+    } else if (is_mixed(j_.precision)) {
+      const std::string sum = read_system_matrix(a_);
+      if (state == saved::single && sum != j_.a_checksum)
+        throw changed(j_.matrix_dataset, j_.input);
+      j_.a_checksum = sum;
     } else {
       in_.input.read(j_.matrix_dataset, a_, j_.column_major);
       refuse_nonfinite(a_, j_.matrix_dataset, j_.input, false, j_.column_major);
@@ -448,16 +543,14 @@ private:
     in_.rhs().read(j_.rhs_dataset, b_, false);
     refuse_nonfinite(b_, j_.rhs_dataset, in_.rhs().path(), in_.rhs_1d(), false);
     const std::string b_sum = io::checksum_text(content_checksum(b_));
-    if (from_state && b_sum != j_.b_checksum)
-      throw error(error_kind::input, j_.rhs_dataset + " in " + in_.rhs().path() +
-                                         " changed since the checkpoint was made; it cannot be "
-                                         "resumed");
+    if (state != saved::none && b_sum != j_.b_checksum)
+      throw changed(j_.rhs_dataset, in_.rhs().path());
     j_.b_checksum = b_sum;
     if (ck_) ck_->dir.record_job(to_json(j_).dump(2) + "\n");
   }
 
   dist_matrix<T> solve_and_check(const io::file* factors) {
-    const solve_with with = system_of(j_);
+    const solve_with with = factored_with();
     dist_matrix<T> x(grid_, j_.n, j_.nrhs, j_.block);
     std::copy_n(b_.data(), b_.ld() * b_.local_cols(), x.data());
     r_.solve_seconds = timed(grid_, [&] { solve(a_, lu_.pivots, x, with); });
@@ -470,7 +563,10 @@ private:
       std::optional<dist_matrix<T>> kept;
       if (j_.refine) kept.emplace(grid_, j_.n, j_.n, j_.block);
       dist_matrix<T>& m = kept ? *kept : a_;
-      read_system_matrix(m, factors);
+      const std::string sum = read_system_matrix(m);
+      if (factors && text_attribute(*factors, "a_checksum") != sum)
+        throw error(error_kind::input, "the factors in " + j_.factors + " do not belong to " +
+                                           j_.input + ": its matrix differs from theirs");
       const auto figures = measure_matrix(m);
       solution_figures errors;
       if (j_.refine) {
@@ -485,19 +581,17 @@ private:
     return x;
   }
 
-  // The matrix of the system solved, op(A), from A's file: A^T is A read the other way.
-  void read_system_matrix(dist_matrix<T>& m, const io::file* factors) {
+  // The matrix of the system solved, op(A), from A's file (A^T is A read the other way),
+  // and the checksum of A as stored.
+  std::string read_system_matrix(dist_matrix<T>& m) {
     const bool flipped = system_of(j_) != solve_with::a;
     in_.input.read(j_.matrix_dataset, m, j_.column_major != flipped);
-    if (factors) {
-      refuse_nonfinite(m, j_.matrix_dataset, j_.input, false, j_.column_major != flipped);
-      if (text_attribute(*factors, "a_checksum") != io::checksum_text(content_checksum(m, flipped)))
-        throw error(error_kind::input, "the factors in " + j_.factors + " do not belong to " +
-                                           j_.input + ": its matrix differs from theirs");
-    }
+    refuse_nonfinite(m, j_.matrix_dataset, j_.input, false, j_.column_major != flipped);
+    std::string sum = io::checksum_text(content_checksum(m, flipped));
     if constexpr (scalar_traits<T>::is_complex)
       if (system_of(j_) == solve_with::adjoint)
         for (index_t i = 0; i < m.ld() * m.local_cols(); ++i) m.data()[i] = std::conj(m.data()[i]);
+    return sum;
   }
 
   void write_solution(const dist_matrix<T>& x) {
@@ -513,6 +607,7 @@ private:
       f.set_attribute("/", "gridlu_version", std::string(version));
       f.set_attribute("/X", "factor_seconds", r_.factor_seconds);
       f.set_attribute("/X", "gflops", r_.gflops);
+      f.set_attribute("/X", "precision_used", r_.precision.used);
       f.set_attribute("/X", "grid",
                       std::to_string(grid_.prows()) + "x" + std::to_string(grid_.pcols()));
       f.set_attribute("/X", "ranks", std::int64_t{grid_.size()});
@@ -594,10 +689,12 @@ double available_memory() {
 void require_memory(const process_grid& grid, const job& j) {
   const int sharing = comm::ranks_on_node(grid.all());
   const double n = static_cast<double>(j.n), entry = element_bytes(j.type);
-  // A (twice to refine: the factors and the matrix), B and X shared out, and per rank
-  // the panels in flight and the I/O slabs.
+  // A (twice to refine: the factors and the matrix; 1.5 times for mixed precision: A and
+  // its single-precision factors), B and X shared out, and per rank the panels in flight
+  // and the I/O slabs.
+  const double copies = is_mixed(j.precision) ? 1.5 : j.refine ? 2 : 1;
   const double need =
-      entry * (((j.refine ? 2 : 1) * n * n + 3.0 * n * static_cast<double>(j.nrhs)) / grid.size() +
+      entry * ((copies * n * n + 3.0 * n * static_cast<double>(j.nrhs)) / grid.size() +
                static_cast<double>(j.lookahead + 4) * n * static_cast<double>(j.block));
   comm::together(grid.all(), [&] {
     const double share = available_memory() / sharing;
@@ -663,6 +760,14 @@ void claim_directory(const checkpoint::directory& dir, const job& j, const run_s
   dir.clear();
 }
 
+// The type of a mixed job's single-precision factorization ("" for other jobs).
+std::string single_type(const job& j) {
+  std::string name;
+  if (is_mixed(j.precision))
+    dispatch_scalar(j.type, [&]<class T>(T) { name = scalar_traits<narrow_t<T>>::name; });
+  return name;
+}
+
 checkpoint::progress progress_of(const checkpoint::directory& dir, const job& j) {
   if (!dir.has_state()) return {};
   const auto s = dir.summary();
@@ -670,7 +775,7 @@ checkpoint::progress progress_of(const checkpoint::directory& dir, const job& j)
     throw error(error_kind::input, "the checkpoint in " + dir.path() +
                                        " belongs to another job than its job.json; it cannot be "
                                        "resumed");
-  if (s.type != j.type || s.n != j.n)
+  if ((s.type != j.type && s.type != single_type(j)) || s.n != j.n)
     throw error(error_kind::input, "the checkpoint in " + dir.path() +
                                        " is not of the job's matrix; it cannot be resumed");
   return s.done;
@@ -742,6 +847,22 @@ solve_result finish_again(const process_grid& grid, job j, const run_settings& r
   return r;
 }
 
+// resume --precision: free before the first checkpoint; after it, only between the two
+// mixed kinds, which share their single-precision factors.
+void switch_precision(job& j, const std::string& precision, const checkpoint::directory& dir) {
+  require_precision(precision, j.type);
+  if (precision == j.precision) return;
+  if (dir.has_state() && !(is_mixed(precision) && is_mixed(j.precision)))
+    throw error(error_kind::usage,
+                "the checkpoint in " + dir.path() + " holds a factorization made for --precision " +
+                    j.precision + "; resume it with --precision " +
+                    (is_mixed(j.precision) ? "mixed or mixed-krylov" : j.precision) +
+                    ", or start over with `gridlu solve --force`");
+  if (is_mixed(precision) && j.refine)
+    throw error(error_kind::usage, "the job asks for --refine, which goes with --precision double");
+  j.precision = precision;
+}
+
 job recorded_job(const checkpoint::directory& dir) {
   const std::string text = dir.job();
   if (text.empty())
@@ -752,6 +873,16 @@ job recorded_job(const checkpoint::directory& dir) {
 }
 
 }  // namespace
+
+void require_precision(const std::string& precision, const std::string& type) {
+  if (precision != "double" && !is_mixed(precision))
+    throw error(error_kind::usage,
+                "the precision must be double, mixed or mixed-krylov, not " + precision);
+  if (is_mixed(precision) && type != "float64" && type != "complex128")
+    throw error(error_kind::usage, "--precision " + precision +
+                                       " refines float64 and complex128 systems; this one is " +
+                                       type + ": solve it with --precision double");
+}
 
 solve_result solve_file(const process_grid& grid, const solve_options& o, const run_settings& run) {
   check_options(o);
@@ -780,6 +911,7 @@ solve_result resume_dir(const process_grid& grid, const resume_options& ro,
   if (!ro.output.empty()) j.output = absolute(ro.output);
   if (ro.checkpoint_every >= 0) j.checkpoint_every = ro.checkpoint_every;
   if (ro.require_digits >= 0) j.require_digits = ro.require_digits;
+  if (!ro.precision.empty()) switch_precision(j, ro.precision, dir);
   j.force = j.force || ro.force;
   j.checkpoint_dir = dir.path();
   if (marks_completion(dir.completion(), j)) return finish_again(grid, j, run, dir);

@@ -12,6 +12,7 @@
 #include "gridlu/generate.hpp"
 #include "gridlu/grid.hpp"
 #include "gridlu/lu.hpp"
+#include "gridlu/mixed.hpp"
 #include "workflows/job.hpp"
 
 namespace gridlu::workflows {
@@ -27,6 +28,24 @@ inline void require_block(index_t block) {
   if (block < 1) throw error(error_kind::usage, "the block size must be at least 1");
 }
 
+// "double", "mixed" or "mixed-krylov": a usage error otherwise, or when mixed precision
+// meets a type it cannot refine (float32 and complex64 have no narrower type).
+void require_precision(const std::string& precision, const std::string& type);
+
+// What produced X: the precision asked, the one used, and the mixed-precision refinement
+// (its history, or why it gave way to a double factorization).
+struct precision_outcome {
+  std::string asked = "double", used = "double";
+  std::optional<mixed_outcome> mixed;  // when a mixed-precision refinement ran
+  std::string fallback;                // why mixed precision gave way to double, if it did
+  // The single-precision factorization in this run of a solve (0: not timed apart);
+  // after a fallback the factor time is the double one's.
+  double single_factor_seconds = 0;
+};
+// Its report keys; a classical refinement in double (--refine) counts as its iterations.
+nlohmann::json precision_json(const precision_outcome& p,
+                              const std::optional<refinement>& refined = std::nullopt);
+
 struct bench_options {
   index_t n = 4096;
   index_t block = default_block;
@@ -34,6 +53,7 @@ struct bench_options {
   std::string type = "float64";
   std::uint64_t seed = 1;
   int repeat = 1;
+  std::string precision = "double";  // mixed kinds: time to a refined X, against double's
 };
 
 struct bench_result {
@@ -43,6 +63,13 @@ struct bench_result {
   double gemm_gflops = 0;  // the same ranks running GEMM at once, median of three
   lu_phases phases;        // of the median run: the largest over the ranks, per phase
   index_t gemm_order = 0;
+  // With mixed precision: the single-precision GEMM rate of the same ranks, the time to
+  // a refined X (median; the factorization is part of it) and the last run's outcome.
+  double narrow_gemm_gflops = 0;
+  std::vector<double> solve_seconds;
+  double solve_median = 0;
+  precision_outcome precision;
+  double normwise_backward_error = 0;  // of the last run's X
   nlohmann::json json(const bench_options& asked) const;
 };
 
@@ -74,11 +101,15 @@ struct demo_options {
   int lookahead = default_lookahead;
   std::string type = "float64";
   std::uint64_t seed = 1;
+  std::string precision = "double";
 };
 
 struct demo_result {
+  // With mixed precision, factor_seconds is the single-precision factorization (and the
+  // double one after a fallback) and solve_seconds the refinement.
   double generate_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0;
   double gflops = 0;
+  precision_outcome precision;
   trust_report trust;
   nlohmann::json json(const demo_options& asked) const;
 };
@@ -102,6 +133,7 @@ struct solve_options {
   std::string solve_with = "A";       // "A", "A^T" or "A^H": the system's matrix
   bool refine = false;                // iterative refinement in the working precision
   std::int64_t require_digits = 0;    // recorded in the job; the command line judges it
+  std::string precision = "double";   // or "mixed", "mixed-krylov"
   bool force = false;                 // replace existing outputs; discard another job's checkpoint
   std::string save_factors, factors;  // paths, or empty
   std::string report;                 // this run's report: checked with the other outputs
@@ -129,6 +161,7 @@ struct solve_result {
   lu_phases phases;  // of this run's factorization: the largest over the ranks, per phase
   trust_report trust;
   std::optional<refinement> refined;  // with --refine
+  precision_outcome precision;
   // Stopped early (by a signal or the time budget) with a checkpoint.
   bool stopped = false;
   // The time budget ran out at this run's first block step: the fixed costs of a run
@@ -158,6 +191,7 @@ struct resume_options {
   bool force = false;                // replace existing outputs even if the job did not ask to
   double checkpoint_every = -1;      // seconds; negative: the job's own
   std::int64_t require_digits = -1;  // negative: the job's own
+  std::string precision;             // empty: the job's own
 };
 
 // Continues (or finishes) the checkpointed job in options.dir on this grid, possibly

@@ -7,6 +7,7 @@
 #include <cstdint>
 #include <limits>
 
+#include "accuracy/reference.hpp"
 #include "gridlu/accuracy.hpp"
 #include "gridlu/generate.hpp"
 #include "kernels/blas.hpp"
@@ -116,16 +117,6 @@ TYPED_TEST(Accuracy, ComponentwiseErrorSeesASmallRowsError) {
     // Normwise: small delta over 1 (1 + delta) + 1, a thousand times smaller.
     EXPECT_NEAR(e.normwise[0], small * delta / (2 + delta), 1e-6 * small * delta);
   }
-}
-
-// On the root, LAPACK's getrf and getrs on the gathered matrix (the reference).
-template <class T>
-std::vector<T> lapack_solve(std::vector<T> a, std::vector<T> b, index_t n, index_t k,
-                            blas::op how) {
-  std::vector<std::int32_t> ipiv(static_cast<std::size_t>(n));
-  EXPECT_EQ(blas::lapack_getrf<T>(n, n, a.data(), n, ipiv.data()), 0);
-  EXPECT_EQ(blas::lapack_getrs<T>(how, n, k, a.data(), n, ipiv.data(), b.data(), n), 0);
-  return b;
 }
 
 blas::op lapack_op(solve_with with) {

@@ -108,11 +108,11 @@ with suite.case("resume of a finished solve: says complete, exit 0, writes nothi
     after = snapshot(c.dir)
     c.check(after == before, f"files changed: {sorted(set(after.items()) ^ set(before.items()))}")
 
-with suite.case("a job recorded before solve_with, refine and require_digits existed resumes "
-                "as A X = B") as c:
+with suite.case("a job recorded before solve_with, refine, require_digits, precision and "
+                "fallback existed resumes as A X = B in double") as c:
     ckpt, out = stopped_solve(c)
     record = json.loads((ckpt / "job.json").read_text())
-    for key in ("solve_with", "refine", "require_digits"):
+    for key in ("solve_with", "refine", "require_digits", "precision", "fallback"):
         c.require(record.pop(key, None) is not None, f"job.json lacks {key}")
     (ckpt / "job.json").write_text(json.dumps(record, indent=2) + "\n")
     c.succeeded(suite.run("resume", ckpt, ranks=RANKS))
