@@ -11,6 +11,7 @@
 #include <vector>
 
 #include "gridlu/lu.hpp"
+#include "gridlu/trust.hpp"
 
 namespace gridlu {
 
@@ -32,6 +33,9 @@ struct mixed_outcome {
   std::vector<double> normwise_backward_errors, residual_ratios;
   // GMRES iterations of each correction, summed over the right-hand sides (Krylov only).
   std::vector<int> inner_iterations;
+  // A's norms, from the one pass the stopping rules make over A: what measure_matrix
+  // gives (up to rounding), so that judging X needs no other pass.
+  matrix_figures matrix;
 };
 
 // Langou et al.'s limit on refinement steps before falling back.

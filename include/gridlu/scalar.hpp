@@ -72,6 +72,15 @@ constexpr double unit_roundoff() {
   return static_cast<double>(epsilon<T>()) / 2;
 }
 
+// Neither part is NaN or infinite.
+template <scalar T>
+bool is_finite(T x) {
+  if constexpr (scalar_traits<T>::is_complex)
+    return std::isfinite(x.real()) && std::isfinite(x.imag());
+  else
+    return std::isfinite(x);
+}
+
 // |Re| + |Im|: the magnitude LAPACK's pivot search compares for complex types.
 template <scalar T>
 real_t<T> abs1(T x) {

@@ -37,14 +37,6 @@ T conjugate(T v) {
     return v;
 }
 
-template <scalar T>
-bool finite(T v) {
-  if constexpr (scalar_traits<T>::is_complex)
-    return std::isfinite(v.real()) && std::isfinite(v.imag());
-  else
-    return std::isfinite(v);
-}
-
 // The largest magnitude and the 2-norm of each column, in double; the same on every rank.
 struct column_norms {
   std::vector<double> largest, two;
@@ -67,31 +59,36 @@ column_norms norms_of_columns(const dist_matrix<T>& m) {
   return c;
 }
 
-// ||a||_inf and ||a||_F in one pass over a; the same on every rank. a fits single
+// a's figures and ||a||_F in one pass over a; the same on every rank. a fits single
 // precision's range (it was copied there), so no square overflows or vanishes in double.
 struct matrix_norms {
-  double inf = 0, frobenius = 0;
+  matrix_figures figures;  // as measure_matrix gives them, up to rounding
+  double frobenius = 0;
 };
 
 template <scalar T>
 matrix_norms norms_of(const dist_matrix<T>& a) {
-  std::vector<double> rows(static_cast<std::size_t>(a.local_rows()), 0.0);
-  double squares = 0;
+  std::vector<double> rows(static_cast<std::size_t>(a.local_rows()), 0.0),
+      cols(static_cast<std::size_t>(a.local_cols()), 0.0);
+  double squares = 0, largest = 0;
   for (index_t lj = 0; lj < a.local_cols(); ++lj)
     for (index_t li = 0; li < a.local_rows(); ++li) {
       // |v| as the root of its square: std::abs of a complex number guards against
       // overflow at many times the cost, and none can happen here.
-      const double square = std::norm(*a.at(li, lj));
-      rows[li] += std::sqrt(square);
+      const double square = std::norm(*a.at(li, lj)), v = std::sqrt(square);
+      rows[li] += v;
+      cols[lj] += v;
+      keep_max(largest, v);
       squares += square;
     }
   comm::sum(a.grid().row(), rows.data(), a.local_rows());
-  matrix_norms n;
-  for (const double s : rows) keep_max(n.inf, s);
-  comm::max(a.grid().all(), &n.inf, 1);
+  comm::sum(a.grid().col(), cols.data(), a.local_cols());
+  double maxima[] = {0, 0, largest};
+  for (const double s : cols) keep_max(maxima[0], s);
+  for (const double s : rows) keep_max(maxima[1], s);
+  comm::max(a.grid().all(), maxima, 3);
   comm::sum(a.grid().all(), &squares, 1);
-  n.frobenius = std::sqrt(squares);
-  return n;
+  return {{maxima[0], maxima[1], maxima[2]}, std::sqrt(squares)};
 }
 
 // u^H v for n x 1 vectors; the same on every rank.
@@ -173,6 +170,7 @@ public:
         b_inf_(norms_of_columns(b).largest) {}
 
   mixed_outcome run() {
+    out_.matrix = norms_.figures;
     std::fill_n(x_.data(), x_.ld() * x_.local_cols(), T(0));
     single_correction(b_);          // x0 = inv(LU) b in single precision
     auto r = residual(a_, x_, b_);  // in double: wide_t<T> is T
@@ -199,7 +197,8 @@ private:
     const auto rn = norms_of_columns(r), xn = norms_of_columns(x_);
     measures m;
     for (std::size_t j = 0; j < rn.two.size(); ++j) {
-      keep_max(m.backward_error, ratio(rn.largest[j], norms_.inf * xn.largest[j] + b_inf_[j]));
+      keep_max(m.backward_error,
+               ratio(rn.largest[j], norms_.figures.norm_inf * xn.largest[j] + b_inf_[j]));
       keep_max(m.ratio, ratio(rn.two[j], xn.two[j] * langou_scale_));
     }
     return m;
@@ -385,7 +384,7 @@ bool narrow_copy(const dist_matrix<T>& a, dist_matrix<narrow_t<T>>& to) {
   std::int64_t overflow = 0;  // a finite entry became infinite
   for (index_t i = 0; i < a.ld() * a.local_cols(); ++i) {
     to.data()[i] = static_cast<narrow_t<T>>(a.data()[i]);
-    overflow |= finite(a.data()[i]) && !finite(to.data()[i]);
+    overflow |= is_finite(a.data()[i]) && !is_finite(to.data()[i]);
   }
   comm::max(a.grid().all(), &overflow, 1);
   return overflow == 0;

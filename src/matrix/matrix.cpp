@@ -132,10 +132,7 @@ std::optional<std::pair<index_t, index_t>> first_nonfinite(const dist_matrix<T>&
   for (index_t lj = 0; lj < a.local_cols(); ++lj) {
     const T* column = a.at(0, lj);
     for (index_t li = 0; li < a.local_rows(); ++li) {
-      const bool finite = scalar_traits<T>::is_complex ? std::isfinite(std::real(column[li])) &&
-                                                             std::isfinite(std::imag(column[li]))
-                                                       : std::isfinite(std::real(column[li]));
-      if (!finite) {
+      if (!is_finite(column[li])) {
         const index_t g = layout.rows.global(a.grid().myrow(), li) * a.cols() +
                           layout.cols.global(a.grid().mycol(), lj);
         key = std::max(key, -g);

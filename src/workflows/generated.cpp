@@ -161,7 +161,7 @@ bool demo_mixed(const process_grid& grid, const demo_options& o, const dist_matr
   refuse_nonfinite_solution(x, false);
   r.check_seconds = timed(grid, [&] {
     const auto from_factors = measure_factors(single, *pivots, solve_with::a);
-    const auto figures = measure_matrix(a);
+    const auto& figures = r.precision.mixed->matrix;
     const auto errors = backward_errors(a, figures, x, b, residual(a, x, b));
     r.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
   });

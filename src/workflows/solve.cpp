@@ -60,7 +60,7 @@ void check_options(const solve_options& o) {
     throw error(error_kind::usage, "the system must be A, A^T or A^H, not " + o.solve_with);
   if ((o.checkpoint_every > 0 || o.stop_after > 0) && o.checkpoint_dir.empty())
     throw error(error_kind::usage, "--checkpoint-every and --stop-after need --checkpoint DIR");
-  require_precision(o.precision, "float64");
+  require_precision(o.precision);
   if (is_mixed(o.precision) && (!o.factors.empty() || !o.save_factors.empty()))
     throw error(error_kind::usage, "--precision " + o.precision +
                                        " keeps its single-precision factors in memory only; "
@@ -496,7 +496,7 @@ private:
       j_.fallback.clear();
       r_.check_seconds = timed(grid_, [&] {
         const auto from_factors = measure_factors(single, lu.pivots, solve_with::a);
-        const auto figures = measure_matrix(a_);
+        const auto& figures = r_.precision.mixed->matrix;
         const auto errors = backward_errors(a_, figures, *x, b_, residual(a_, *x, b_));
         r_.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
       });
@@ -878,7 +878,7 @@ void require_precision(const std::string& precision, const std::string& type) {
   if (precision != "double" && !is_mixed(precision))
     throw error(error_kind::usage,
                 "the precision must be double, mixed or mixed-krylov, not " + precision);
-  if (is_mixed(precision) && type != "float64" && type != "complex128")
+  if (is_mixed(precision) && !type.empty() && type != "float64" && type != "complex128")
     throw error(error_kind::usage, "--precision " + precision +
                                        " refines float64 and complex128 systems; this one is " +
                                        type + ": solve it with --precision double");

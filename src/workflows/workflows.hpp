@@ -29,8 +29,9 @@ inline void require_block(index_t block) {
 }
 
 // "double", "mixed" or "mixed-krylov": a usage error otherwise, or when mixed precision
-// meets a type it cannot refine (float32 and complex64 have no narrower type).
-void require_precision(const std::string& precision, const std::string& type);
+// meets a type it cannot refine (float32 and complex64 have no narrower type; an empty
+// type is not known yet).
+void require_precision(const std::string& precision, const std::string& type = "");
 
 // What produced X: the precision asked, the one used, and the mixed-precision refinement
 // (its history, or why it gave way to a double factorization).
