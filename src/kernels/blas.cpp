@@ -73,27 +73,19 @@ void gemv<double>(op opa, index_t rows, index_t cols, double alpha, const double
   cblas_dgemv(CblasColMajor, to_cblas(opa), bi(rows), bi(cols), alpha, a, ld(lda), x, 1, beta, y,
               1);
 }
-template <>
-void gemv<cf>(op opa, index_t rows, index_t cols, cf alpha, const cf* a, index_t lda, const cf* x,
-              cf beta, cf* y) {
-  cblas_cgemv(CblasColMajor, to_cblas(opa), bi(rows), bi(cols), &alpha, a, ld(lda), x, 1, &beta, y,
-              1);
-}
-template <>
-void gemv<cd>(op opa, index_t rows, index_t cols, cd alpha, const cd* a, index_t lda, const cd* x,
-              cd beta, cd* y) {
-  cblas_zgemv(CblasColMajor, to_cblas(opa), bi(rows), bi(cols), &alpha, a, ld(lda), x, 1, &beta, y,
-              1);
-}
 }  // namespace
 
 template <scalar T>
 void gemm_few(op opa, index_t m, index_t n, index_t k, T alpha, const T* a, index_t lda, const T* b,
               index_t ldb, T beta, T* c, index_t ldc) {
-  if (n != 1) return gemm(opa, op::none, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc);
-  if (m <= 0) return;
-  const bool plain = opa == op::none;
-  gemv(opa, plain ? m : k, plain ? k : m, alpha, a, lda, b, beta, c);
+  if constexpr (scalar_traits<T>::is_complex) {
+    gemm(opa, op::none, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc);
+  } else {
+    if (n != 1) return gemm(opa, op::none, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc);
+    if (m <= 0) return;
+    const bool plain = opa == op::none;
+    gemv(opa, plain ? m : k, plain ? k : m, alpha, a, lda, b, beta, c);
+  }
 }
 
 template <>

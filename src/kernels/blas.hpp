@@ -20,9 +20,11 @@ void gemm(op opa, op opb, index_t m, index_t n, index_t k, T alpha, const T* a, 
           const T* b, index_t ldb, T beta, T* c, index_t ldc);
 
 // gemm with op(b) = b for products with few columns, as the solves and residuals with
-// few right-hand sides form them: one column goes to GEMV, which reads op(a) once where
-// OpenBLAS 0.3.21's GEMM packs it first (a solve with one right-hand side 3x faster).
-// The factorization keeps gemm: its panel ran 1.5 % slower with GEMV.
+// few right-hand sides form them: one real column goes to GEMV, which reads op(a) once
+// where OpenBLAS 0.3.21's GEMM packs it first (a solve with one right-hand side 3x
+// faster). Complex columns stay with GEMM: under AddressSanitizer OpenBLAS 0.3.21's
+// cgemv_n read past the end of an operand. The factorization keeps gemm: its panel ran
+// about 2 % slower with GEMV.
 template <scalar T>
 void gemm_few(op opa, index_t m, index_t n, index_t k, T alpha, const T* a, index_t lda, const T* b,
               index_t ldb, T beta, T* c, index_t ldc);
