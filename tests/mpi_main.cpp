@@ -6,6 +6,7 @@
 
 int main(int argc, char** argv) {
   gridlu::mpi_session mpi(argc, argv);
+  gridlu::comm::transfer_limit_from_environment();  // CI runs some suites with it lowered
   testing::InitGoogleTest(&argc, argv);
   int rank = 0;
   MPI_Comm_rank(MPI_COMM_WORLD, &rank);

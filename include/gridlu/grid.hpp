@@ -80,6 +80,16 @@ private:
 
 namespace comm {
 
+// No single MPI or HDF5 call moves more than this many bytes (nor 2^31 elements): longer
+// transfers go in pieces. The default, 256 MiB, is far below the 2 GiB that MPI's int
+// counts and HDF5 over MPI-IO allow; tests lower it to a few bytes so that every split path
+// runs on small matrices. Throws a usage error outside [1 byte, 1 GiB].
+inline constexpr std::int64_t largest_transfer_limit = std::int64_t{1} << 30;
+std::int64_t transfer_limit();
+void set_transfer_limit(std::int64_t bytes);
+// Sets the limit from the environment variable GRIDLU_TRANSFER_LIMIT (bytes), if set.
+void transfer_limit_from_environment();
+
 double wtime();
 // This process's rank in, and the size of, the whole job (MPI_COMM_WORLD).
 int world_rank();

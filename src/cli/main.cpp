@@ -736,6 +736,7 @@ int main(int argc, char** argv) {
   }
 
   try {
+    comm::transfer_limit_from_environment();
     for (const auto& c : commands)
       if (*c.app) return c.run();
     return exit_code(error_kind::usage);

@@ -34,7 +34,7 @@ candidate best_with_rows(const communicator& c, candidate mine, T* pivot_row, T*
 class request {
 public:
   request() = default;
-  explicit request(MPI_Request r) : r_(r) {}
+  explicit request(std::vector<MPI_Request> r) : r_(std::move(r)) {}
   ~request();
   request(request&& other) noexcept;
   request& operator=(request&& other) noexcept;
@@ -45,7 +45,7 @@ public:
   void wait();
 
 private:
-  MPI_Request r_ = MPI_REQUEST_NULL;
+  std::vector<MPI_Request> r_;  // one per piece of the transfer
 };
 
 // Non-blocking broadcast; every rank of c starts it, in the same order as c's other
@@ -53,12 +53,15 @@ private:
 template <class T>
 request start_broadcast(const communicator& c, T* data, index_t count, int root);
 
-// All-to-all with per-rank element counts; displacements follow the rank order.
+// All-to-all with per-rank element counts; displacements follow the rank order. Point to
+// point, each message in pieces within the transfer limit.
 template <class T>
-void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts, T* recv,
-                const std::vector<int>& recv_counts);
+void all_to_all(const communicator& c, const T* send, const std::vector<index_t>& send_counts,
+                T* recv, const std::vector<index_t>& recv_counts);
 
-// Concatenates every rank's block on root, in rank order; counts known on root.
+// Concatenates every rank's block on root, in rank order. Every rank passes every count
+// (so all agree on the rounds the transfer limit asks for); root's buffer holds at most
+// 2^31 elements.
 template <class T>
 void gather(const communicator& c, const T* send, index_t count, T* recv,
             const std::vector<index_t>& counts, int root);

@@ -11,6 +11,7 @@
 #include <cstdlib>
 #include <cstring>
 #include <new>
+#include <numeric>
 
 namespace gridlu {
 namespace {
@@ -49,15 +50,33 @@ int to_int(index_t count) {
   return static_cast<int>(count);
 }
 
-std::vector<int> displacements(const std::vector<int>& counts) {
-  std::vector<int> d(counts.size(), 0);
+template <class I>
+std::vector<I> displacements(const std::vector<I>& counts) {
+  std::vector<I> d(counts.size(), 0);
   for (std::size_t i = 1; i < counts.size(); ++i) d[i] = d[i - 1] + counts[i - 1];
   return d;
+}
+
+std::int64_t limit_bytes = std::int64_t{1} << 28;
+
+// Elements of T one call may move: the transfer limit's worth, at least one.
+template <class T>
+index_t piece_of() {
+  return std::max<index_t>(
+      1, std::min<index_t>(limit_bytes / static_cast<index_t>(sizeof(T)), INT_MAX));
+}
+
+// f(first, count) for consecutive pieces of [0, count) within the transfer limit.
+template <class T, class F>
+void in_pieces(index_t count, F&& f) {
+  const index_t piece = piece_of<T>();
+  for (index_t done = 0; done < count; done += piece) f(done, std::min(piece, count - done));
 }
 
 }  // namespace
 
 mpi_session::mpi_session(int& argc, char**& argv) { MPI_Init(&argc, &argv); }
+
 mpi_session::~mpi_session() { MPI_Finalize(); }
 
 communicator::~communicator() {
@@ -124,6 +143,26 @@ process_grid::process_grid(MPI_Comm parent, grid_shape shape) : shape_(shape) {
 
 namespace comm {
 
+std::int64_t transfer_limit() { return limit_bytes; }
+void set_transfer_limit(std::int64_t bytes) {
+  if (bytes < 1 || bytes > largest_transfer_limit)
+    throw error(error_kind::usage,
+                "the transfer limit must be from 1 byte to 1 GiB, not " + std::to_string(bytes));
+  limit_bytes = bytes;
+}
+
+void transfer_limit_from_environment() {
+  const char* text = std::getenv("GRIDLU_TRANSFER_LIMIT");
+  if (!text) return;
+  std::int64_t bytes = 0;
+  const auto end = text + std::strlen(text);
+  const auto [at, rc] = std::from_chars(text, end, bytes);
+  if (rc != std::errc() || at != end || *text == '\0')
+    throw error(error_kind::usage,
+                "GRIDLU_TRANSFER_LIMIT must be a number of bytes, not '" + std::string(text) + "'");
+  set_transfer_limit(bytes);
+}
+
 double wtime() { return MPI_Wtime(); }
 
 int world_rank() {
@@ -172,24 +211,29 @@ void barrier(const communicator& c) { check(MPI_Barrier(c.get()), "MPI_Barrier")
 
 template <class T>
 void broadcast(const communicator& c, T* data, index_t count, int root) {
-  constexpr index_t chunk = index_t{1} << 28;
-  for (index_t done = 0; done < count; done += chunk)
-    check(
-        MPI_Bcast(data + done, to_int(std::min(chunk, count - done)), mpi_type<T>(), root, c.get()),
-        "MPI_Bcast");
+  in_pieces<T>(count, [&](index_t first, index_t n) {
+    check(MPI_Bcast(data + first, to_int(n), mpi_type<T>(), root, c.get()), "MPI_Bcast");
+  });
 }
 
 void broadcast(const communicator& c, std::string& text, int root) {
   std::int64_t size = static_cast<std::int64_t>(text.size());
   broadcast(c, &size, 1, root);
   text.resize(static_cast<std::size_t>(size));
-  check(MPI_Bcast(text.data(), to_int(size), MPI_CHAR, root, c.get()), "MPI_Bcast");
+  broadcast(c, text.data(), size, root);
+}
+
+// An all-reduce in place, in pieces within the transfer limit.
+template <class T>
+void all_reduce(const communicator& c, T* data, index_t count, MPI_Datatype type, MPI_Op op) {
+  in_pieces<T>(count, [&](index_t first, index_t n) {
+    check(MPI_Allreduce(MPI_IN_PLACE, data + first, to_int(n), type, op, c.get()), "MPI_Allreduce");
+  });
 }
 
 template <class T>
 void sum(const communicator& c, T* data, index_t count) {
-  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), MPI_SUM, c.get()),
-        "MPI_Allreduce");
+  all_reduce(c, data, count, mpi_type<T>(), MPI_SUM);
 }
 
 // MPI_MAX and MPI_MIN on floating types may drop a NaN; these keep it, so that a NaN
@@ -218,20 +262,15 @@ MPI_Op extreme_op() {
 
 template <class T>
 void max(const communicator& c, T* data, index_t count) {
-  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), extreme_op<T, true>(),
-                      c.get()),
-        "MPI_Allreduce");
+  all_reduce(c, data, count, mpi_type<T>(), extreme_op<T, true>());
 }
 template <class T>
 void min(const communicator& c, T* data, index_t count) {
-  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), mpi_type<T>(), extreme_op<T, false>(),
-                      c.get()),
-        "MPI_Allreduce");
+  all_reduce(c, data, count, mpi_type<T>(), extreme_op<T, false>());
 }
 
 void bit_xor(const communicator& c, std::uint64_t* data, index_t count) {
-  check(MPI_Allreduce(MPI_IN_PLACE, data, to_int(count), MPI_UINT64_T, MPI_BXOR, c.get()),
-        "MPI_Allreduce");
+  all_reduce(c, data, count, MPI_UINT64_T, MPI_BXOR);
 }
 
 namespace {
@@ -313,72 +352,120 @@ candidate best_with_rows(const communicator& c, candidate mine, T* pivot_row, T*
 }
 
 request::~request() {
-  if (r_ != MPI_REQUEST_NULL) MPI_Wait(&r_, MPI_STATUS_IGNORE);
+  if (!r_.empty()) MPI_Waitall(static_cast<int>(r_.size()), r_.data(), MPI_STATUSES_IGNORE);
 }
-request::request(request&& other) noexcept : r_(other.r_) { other.r_ = MPI_REQUEST_NULL; }
+request::request(request&& other) noexcept : r_(std::move(other.r_)) { other.r_.clear(); }
 request& request::operator=(request&& other) noexcept {
   std::swap(r_, other.r_);
   return *this;
 }
 bool request::test() {
-  if (r_ == MPI_REQUEST_NULL) return true;
+  if (r_.empty()) return true;
   int done = 0;
-  check(MPI_Test(&r_, &done, MPI_STATUS_IGNORE), "MPI_Test");
+  check(MPI_Testall(static_cast<int>(r_.size()), r_.data(), &done, MPI_STATUSES_IGNORE),
+        "MPI_Testall");
+  if (done) r_.clear();
   return done != 0;
 }
 void request::wait() {
-  if (r_ != MPI_REQUEST_NULL) check(MPI_Wait(&r_, MPI_STATUS_IGNORE), "MPI_Wait");
+  if (r_.empty()) return;
+  check(MPI_Waitall(static_cast<int>(r_.size()), r_.data(), MPI_STATUSES_IGNORE), "MPI_Waitall");
+  r_.clear();
 }
 
 template <class T>
 request start_broadcast(const communicator& c, T* data, index_t count, int root) {
   if (c.size() == 1) return {};
-  MPI_Request r;
-  check(MPI_Ibcast(data, to_int(count), mpi_type<T>(), root, c.get(), &r), "MPI_Ibcast");
-  return request(r);
+  std::vector<MPI_Request> pieces;
+  in_pieces<T>(count, [&](index_t first, index_t n) {
+    check(MPI_Ibcast(data + first, to_int(n), mpi_type<T>(), root, c.get(), &pieces.emplace_back()),
+          "MPI_Ibcast");
+  });
+  return request(std::move(pieces));
 }
 
+// Point to point, in pieces within the transfer limit. Each pair knows the count it
+// exchanges, so no rank needs to learn how many pieces the others send (no extra round of
+// agreement) and 64-bit counts never reach MPI.
 template <class T>
-void all_to_all(const communicator& c, const T* send, const std::vector<int>& send_counts, T* recv,
-                const std::vector<int>& recv_counts) {
+void all_to_all(const communicator& c, const T* send, const std::vector<index_t>& send_counts,
+                T* recv, const std::vector<index_t>& recv_counts) {
+  constexpr int tag = 7;
   const auto sd = displacements(send_counts), rd = displacements(recv_counts);
-  check(MPI_Alltoallv(send, send_counts.data(), sd.data(), mpi_type<T>(), recv, recv_counts.data(),
-                      rd.data(), mpi_type<T>(), c.get()),
-        "MPI_Alltoallv");
+  const int me = c.rank(), ranks = c.size();
+  std::copy_n(send + sd[me], send_counts[me], recv + rd[me]);
+  std::vector<MPI_Request> pending;
+  for (int k = 1; k < ranks; ++k) {
+    const int from = (me + ranks - k) % ranks;
+    in_pieces<T>(recv_counts[from], [&](index_t first, index_t n) {
+      check(MPI_Irecv(recv + rd[from] + first, to_int(n), mpi_type<T>(), from, tag, c.get(),
+                      &pending.emplace_back()),
+            "MPI_Irecv");
+    });
+  }
+  for (int k = 1; k < ranks; ++k) {
+    const int to = (me + k) % ranks;
+    in_pieces<T>(send_counts[to], [&](index_t first, index_t n) {
+      check(MPI_Isend(send + sd[to] + first, to_int(n), mpi_type<T>(), to, tag, c.get(),
+                      &pending.emplace_back()),
+            "MPI_Isend");
+    });
+  }
+  check(MPI_Waitall(static_cast<int>(pending.size()), pending.data(), MPI_STATUSES_IGNORE),
+        "MPI_Waitall");
 }
+
+namespace {
+
+// Calls f(offset, counts, displacements) for rounds in which no rank's block exceeds the
+// transfer limit: round k moves elements [offset, offset + piece) of every block. Every
+// rank knows every count, so all agree on the number of rounds without a message.
+template <class T, class F>
+void in_rounds(const std::vector<index_t>& counts, F&& f) {
+  const index_t piece = piece_of<T>();
+  const index_t most = counts.empty() ? 0 : *std::max_element(counts.begin(), counts.end());
+  const index_t rounds = std::max<index_t>(1, (most + piece - 1) / piece);
+  const auto d = displacements(counts);
+  std::vector<int> n(counts.size()), at(counts.size());
+  for (index_t k = 0; k < rounds; ++k) {
+    const index_t offset = k * piece;
+    for (std::size_t p = 0; p < counts.size(); ++p) {
+      n[p] = to_int(std::clamp<index_t>(counts[p] - offset, 0, piece));
+      at[p] = to_int(d[p] + std::min(offset, counts[p]));
+    }
+    f(offset, n, at);
+  }
+}
+
+}  // namespace
 
 template <class T>
 void gather(const communicator& c, const T* send, index_t count, T* recv,
             const std::vector<index_t>& counts, int root) {
-  std::vector<int> n;
-  if (c.rank() == root)
-    for (index_t v : counts) n.push_back(to_int(v));
-  const auto d = displacements(n);
-  check(MPI_Gatherv(send, to_int(count), mpi_type<T>(), recv, n.data(), d.data(), mpi_type<T>(),
-                    root, c.get()),
-        "MPI_Gatherv");
+  in_rounds<T>(counts, [&](index_t offset, const std::vector<int>& n, const std::vector<int>& at) {
+    check(MPI_Gatherv(send + std::min(offset, count), n[c.rank()], mpi_type<T>(), recv, n.data(),
+                      at.data(), mpi_type<T>(), root, c.get()),
+          "MPI_Gatherv");
+  });
 }
 template <class T>
 void scatter(const communicator& c, const T* send, const std::vector<index_t>& counts, T* recv,
              index_t count, int root) {
-  std::vector<int> n;
-  if (c.rank() == root)
-    for (index_t v : counts) n.push_back(to_int(v));
-  const auto d = displacements(n);
-  check(MPI_Scatterv(send, n.data(), d.data(), mpi_type<T>(), recv, to_int(count), mpi_type<T>(),
-                     root, c.get()),
-        "MPI_Scatterv");
+  in_rounds<T>(counts, [&](index_t offset, const std::vector<int>& n, const std::vector<int>& at) {
+    check(MPI_Scatterv(send, n.data(), at.data(), mpi_type<T>(), recv + std::min(offset, count),
+                       n[c.rank()], mpi_type<T>(), root, c.get()),
+          "MPI_Scatterv");
+  });
 }
 
 template <class T>
 void all_gather(const communicator& c, const T* send, index_t count, T* recv,
                 const std::vector<index_t>& counts) {
-  std::vector<int> n;
-  for (index_t v : counts) n.push_back(to_int(v));
-  const auto d = displacements(n);
-  check(MPI_Allgatherv(send, to_int(count), mpi_type<T>(), recv, n.data(), d.data(), mpi_type<T>(),
-                       c.get()),
-        "MPI_Allgatherv");
+  in_rounds<T>(counts, [&](index_t offset, const std::vector<int>& n, const std::vector<int>& at) {
+    check(MPI_Allgatherv(send + std::min(offset, count), n[c.rank()], mpi_type<T>(), recv, n.data(),
+                         at.data(), mpi_type<T>(), c.get()),
+          "MPI_Allgatherv");
+  });
 }
 
 void agree(const communicator& c, std::exception_ptr mine) {
@@ -413,8 +500,8 @@ void agree(const communicator& c, std::exception_ptr mine) {
   X(float) X(double) X(std::complex<float>) X(std::complex<double>) X(std::int64_t) X(int)
 #define GRIDLU_COMM_INSTANTIATE(T)                                                                 \
   template void broadcast<T>(const communicator&, T*, index_t, int);                               \
-  template void all_to_all<T>(const communicator&, const T*, const std::vector<int>&, T*,          \
-                              const std::vector<int>&);                                            \
+  template void all_to_all<T>(const communicator&, const T*, const std::vector<index_t>&, T*,      \
+                              const std::vector<index_t>&);                                        \
   template void gather<T>(const communicator&, const T*, index_t, T*, const std::vector<index_t>&, \
                           int);                                                                    \
   template void scatter<T>(const communicator&, const T*, const std::vector<index_t>&, T*,         \

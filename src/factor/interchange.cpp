@@ -80,7 +80,7 @@ void interchange_rows(dist_matrix<T>& a, const interchange_plan& plan,
   constexpr std::size_t lines_kept = std::size_t{1} << 17;  // 8 MiB of 64-byte lines
   const std::size_t group =
       procs == 1 ? targets.size() : std::max<std::size_t>(1, lines_kept / moves);
-  std::vector<int> send_counts(procs), recv_counts(procs);
+  std::vector<index_t> send_counts(procs), recv_counts(procs);
   std::vector<T*> out(procs);
   std::vector<const T*> in(procs);
   auto& [sent, received, held] = buffers;
@@ -101,14 +101,14 @@ void interchange_rows(dist_matrix<T>& a, const interchange_plan& plan,
     const auto part = std::span(targets).subspan(g0, std::min(group, targets.size() - g0));
     const auto width = part.size();
     for (int p = 0; p < procs; ++p) {
-      send_counts[p] = static_cast<int>(send_rows[p].size() * width);
-      recv_counts[p] = static_cast<int>(recv_rows[p].size() * width);
+      send_counts[p] = static_cast<index_t>(send_rows[p].size()) * width;
+      recv_counts[p] = static_cast<index_t>(recv_rows[p].size()) * width;
     }
-    sent.resize(
-        static_cast<std::size_t>(std::accumulate(send_counts.begin(), send_counts.end(), 0)));
-    received.resize(
-        static_cast<std::size_t>(std::accumulate(recv_counts.begin(), recv_counts.end(), 0)));
-    for (int p = 0, offset = 0; p < procs; offset += send_counts[p++])
+    sent.resize(static_cast<std::size_t>(
+        std::accumulate(send_counts.begin(), send_counts.end(), index_t{0})));
+    received.resize(static_cast<std::size_t>(
+        std::accumulate(recv_counts.begin(), recv_counts.end(), index_t{0})));
+    for (index_t p = 0, offset = 0; p < procs; offset += send_counts[p++])
       out[p] = sent.data() + offset;
     // One pass packs what leaves and then moves what stays (a row sent away may be
     // overwritten by a move within this rank).
@@ -126,7 +126,7 @@ void interchange_rows(dist_matrix<T>& a, const interchange_plan& plan,
     if (procs == 1) continue;
     comm::all_to_all(a.grid().col(), sent.data(), send_counts, received.data(), recv_counts);
     // The same order as the packing: per quad of columns, each source's rows.
-    for (int p = 0, offset = 0; p < procs; offset += recv_counts[p++])
+    for (index_t p = 0, offset = 0; p < procs; offset += recv_counts[p++])
       in[p] = received.data() + offset;
     for_each_quad(part, unpacked_rows, [&](std::span<T* const> quad) {
       for (int p = 0; p < procs; ++p)

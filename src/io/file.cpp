@@ -353,7 +353,7 @@ void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) con
       slab = read_slab<T>(dset.get(), s.is_complex, plan.along.block_start(s_me),
                           plan.along.block_size(s_me), plan.file_cols, what);
     });
-    std::vector<int> send_counts(static_cast<std::size_t>(plan.ranks()), 0),
+    std::vector<index_t> send_counts(static_cast<std::size_t>(plan.ranks()), 0),
         recv_counts(send_counts);
     sent.clear();
     if (s_me >= 0) {
@@ -367,13 +367,13 @@ void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) con
             const T* from = slab.data() + t * plan.file_cols + g;
             sent.insert(sent.end(), from, from + len);
           });
-        send_counts[r] = static_cast<int>(h * plan.across.local_extent(d));
+        send_counts[r] = h * plan.across.local_extent(d);
       }
     }
     for (int r = 0; r < plan.ranks(); ++r) {
       const index_t s_r = plan.slab(round, r);
       if (s_r >= 0 && plan.along.block_owner(s_r) == plan.my_along())
-        recv_counts[r] = static_cast<int>(plan.along.block_size(s_r) * mine_across);
+        recv_counts[r] = plan.along.block_size(s_r) * mine_across;
     }
     received.resize(static_cast<std::size_t>(
         std::accumulate(recv_counts.begin(), recv_counts.end(), index_t{0})));
@@ -437,7 +437,7 @@ void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dime
   const index_t mine_across = plan.across.local_extent(plan.my_across());
   std::vector<T> slab, sent, received;
   for (index_t round = 0; round < plan.rounds(); ++round) {
-    std::vector<int> send_counts(static_cast<std::size_t>(plan.ranks()), 0),
+    std::vector<index_t> send_counts(static_cast<std::size_t>(plan.ranks()), 0),
         recv_counts(send_counts);
     sent.clear();
     for (int r = 0; r < plan.ranks(); ++r) {
@@ -446,14 +446,14 @@ void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dime
       const index_t count = plan.along.block_size(s_r) * mine_across;
       sent.resize(sent.size() + static_cast<std::size_t>(count));
       plan.move_piece<false>(m, s_r, sent.data() + sent.size() - count);
-      send_counts[r] = static_cast<int>(count);
+      send_counts[r] = count;
     }
     const index_t s_me = plan.slab(round, me);
     if (s_me >= 0) {
       const index_t h = plan.along.block_size(s_me);
       for (int r = 0; r < plan.ranks(); ++r)
         if (plan.along_of(r) == plan.along.block_owner(s_me))
-          recv_counts[r] = static_cast<int>(h * plan.across.local_extent(plan.across_of(r)));
+          recv_counts[r] = h * plan.across.local_extent(plan.across_of(r));
     }
     received.resize(static_cast<std::size_t>(
         std::accumulate(recv_counts.begin(), recv_counts.end(), index_t{0})));

@@ -66,6 +66,14 @@ void for_each_entry_of(const block_cyclic& layout, int q, int r, F&& f) {
       f(li + lj * mr, layout.rows.global(prow, li), layout.cols.global(pcol, lj));
 }
 
+// How many entries each rank of the grid holds, in rank order.
+std::vector<index_t> rank_counts(const block_cyclic& layout, int q, int ranks) {
+  std::vector<index_t> counts;
+  for (int r = 0; r < ranks; ++r)
+    counts.push_back(layout.rows.local_extent(r / q) * layout.cols.local_extent(r % q));
+  return counts;
+}
+
 }  // namespace
 
 template <scalar T>
@@ -74,14 +82,9 @@ std::vector<T> dist_matrix<T>::gather(int root) const {
   std::vector<T> packed(static_cast<std::size_t>(local_rows_ * local_cols_));
   for (index_t lj = 0; lj < local_cols_; ++lj)
     std::copy_n(at(0, lj), local_rows_, packed.data() + lj * local_rows_);
-  std::vector<index_t> counts;
+  const auto counts = rank_counts(layout_, grid_->pcols(), all.size());
   std::vector<T> received, whole;
-  if (all.rank() == root) {
-    for (int r = 0; r < all.size(); ++r)
-      counts.push_back(layout_.rows.local_extent(r / grid_->pcols()) *
-                       layout_.cols.local_extent(r % grid_->pcols()));
-    received.resize(static_cast<std::size_t>(rows() * cols()));
-  }
+  if (all.rank() == root) received.resize(static_cast<std::size_t>(rows() * cols()));
   comm::gather(all, packed.data(), static_cast<index_t>(packed.size()), received.data(), counts,
                root);
   if (all.rank() != root) return whole;
@@ -99,7 +102,7 @@ std::vector<T> dist_matrix<T>::gather(int root) const {
 template <scalar T>
 void dist_matrix<T>::scatter(const std::vector<T>& whole, int root) {
   const auto& all = grid_->all();
-  std::vector<index_t> counts;
+  const auto counts = rank_counts(layout_, grid_->pcols(), all.size());
   std::vector<T> packed;
   comm::together(all, [&] {
     if (all.rank() == root && static_cast<index_t>(whole.size()) != rows() * cols())
@@ -109,13 +112,10 @@ void dist_matrix<T>::scatter(const std::vector<T>& whole, int root) {
     packed.resize(whole.size());
     index_t offset = 0;
     for (int r = 0; r < all.size(); ++r) {
-      index_t n = 0;
       for_each_entry_of(layout_, grid_->pcols(), r, [&](index_t k, index_t i, index_t j) {
         packed[offset + k] = whole[static_cast<std::size_t>(i + j * rows())];
-        ++n;
       });
-      counts.push_back(n);
-      offset += n;
+      offset += counts[r];
     }
   }
   std::vector<T> mine(static_cast<std::size_t>(local_rows_ * local_cols_));

@@ -2,6 +2,10 @@
 // gather/scatter, checked against the block-cyclic definition.
 #include <gtest/gtest.h>
 
+#include <complex>
+#include <numeric>
+#include <vector>
+
 #include "comm/collectives.hpp"
 #include "gridlu/generate.hpp"
 #include "gridlu/matrix.hpp"
@@ -142,3 +146,83 @@ TYPED_TEST(Distribution, FillGatherScatterAgreeWithGlobalIndices) {
 }
 
 }  // namespace
+
+// Transfers split at a limit of a few bytes arrive exactly as whole ones: the values each
+// rank can compute for itself (sums of rank-dependent integers, the root's pattern, every
+// sender's numbering) are the reference.
+class TransferLimit : public ::testing::Test {
+protected:
+  void SetUp() override {
+    saved_ = comm::transfer_limit();
+    comm::set_transfer_limit(24);  // three doubles, one and a half complex<double>
+  }
+  void TearDown() override { comm::set_transfer_limit(saved_); }
+
+private:
+  std::int64_t saved_ = 0;
+};
+
+TEST_F(TransferLimit, BroadcastsAndReductionsGoInPiecesAndAgree) {
+  const process_grid grid(MPI_COMM_WORLD, square_grid_shape(world_size()));
+  const index_t n = 1001;  // no multiple of any piece
+  std::vector<std::complex<double>> v(n);
+  for (index_t i = 0; i < n; ++i) v[i] = grid.rank() == 0 ? std::complex<double>(i, -i) : 0.0;
+  comm::broadcast(grid.all(), v.data(), n, 0);
+  for (index_t i = 0; i < n; ++i) ASSERT_EQ(v[i], std::complex<double>(i, -i)) << i;
+  std::vector<double> s(n), m(n);
+  for (index_t i = 0; i < n; ++i) s[i] = m[i] = static_cast<double>(i * (grid.rank() + 1));
+  comm::sum(grid.all(), s.data(), n);
+  comm::max(grid.all(), m.data(), n);
+  const double ranks = grid.size(), triangle = ranks * (ranks + 1) / 2;
+  for (index_t i = 0; i < n; ++i) {
+    ASSERT_EQ(s[i], static_cast<double>(i) * triangle) << i;
+    ASSERT_EQ(m[i], static_cast<double>(i) * ranks) << i;
+  }
+  std::vector<double> w(n, grid.rank() == 0 ? 7.0 : 0.0);
+  { comm::start_broadcast(grid.all(), w.data(), n, 0).wait(); }
+  for (index_t i = 0; i < n; ++i) ASSERT_EQ(w[i], 7.0) << i;
+}
+
+TEST_F(TransferLimit, AllToAllInPiecesDeliversEveryBlockInOrder) {
+  const process_grid grid(MPI_COMM_WORLD, square_grid_shape(world_size()));
+  const int procs = grid.size(), me = grid.rank();
+  // Rank p sends rank q a block of 3 p + q + 1 elements numbered from 1000 p + 100 q.
+  const auto count = [](int p, int q) { return index_t{3 * p + q + 1}; };
+  std::vector<index_t> send_counts(procs), recv_counts(procs);
+  std::vector<double> send;
+  for (int q = 0; q < procs; ++q) {
+    send_counts[q] = count(me, q);
+    recv_counts[q] = count(q, me);
+    for (index_t k = 0; k < send_counts[q]; ++k) send.push_back(1000.0 * me + 100.0 * q + k);
+  }
+  std::vector<double> recv(static_cast<std::size_t>(
+      std::accumulate(recv_counts.begin(), recv_counts.end(), index_t{0})));
+  comm::all_to_all(grid.all(), send.data(), send_counts, recv.data(), recv_counts);
+  std::size_t at = 0;
+  for (int p = 0; p < procs; ++p)
+    for (index_t k = 0; k < recv_counts[p]; ++k, ++at)
+      ASSERT_EQ(recv[at], 1000.0 * p + 100.0 * me + k) << "from " << p << " element " << k;
+}
+
+TEST_F(TransferLimit, GatherScatterAndAllGatherInRoundsKeepRankOrder) {
+  const process_grid grid(MPI_COMM_WORLD, square_grid_shape(world_size()));
+  const int procs = grid.size(), me = grid.rank();
+  // Rank p's block has 5 p + 2 elements (several rounds at 3 doubles), numbered 1000 p + k.
+  std::vector<index_t> counts(procs);
+  std::vector<double> expected;
+  for (int p = 0; p < procs; ++p) {
+    counts[p] = 5 * p + 2;
+    for (index_t k = 0; k < counts[p]; ++k) expected.push_back(1000.0 * p + k);
+  }
+  std::vector<double> mine(static_cast<std::size_t>(counts[me]));
+  for (index_t k = 0; k < counts[me]; ++k) mine[k] = 1000.0 * me + k;
+  std::vector<double> all(expected.size(), -1.0);
+  comm::all_gather(grid.all(), mine.data(), counts[me], all.data(), counts);
+  EXPECT_EQ(all, expected);
+  std::vector<double> gathered(me == 0 ? expected.size() : 0, -1.0);
+  comm::gather(grid.all(), mine.data(), counts[me], gathered.data(), counts, 0);
+  if (me == 0) EXPECT_EQ(gathered, expected);
+  std::vector<double> back(mine.size(), -1.0);
+  comm::scatter(grid.all(), gathered.data(), counts, back.data(), counts[me], 0);
+  EXPECT_EQ(back, mine);
+}
