@@ -21,8 +21,21 @@ inline std::vector<grid_shape> shapes_for_world() {
   int ranks = 0;
   MPI_Comm_size(MPI_COMM_WORLD, &ranks);
   std::vector<grid_shape> out;
-  for (const grid_shape s :
-       {grid_shape{1, 1}, {1, 2}, {2, 1}, {2, 2}, {1, 4}, {4, 1}, {1, 3}, {3, 1}, {2, 3}, {3, 2}})
+  for (const grid_shape s : {grid_shape{1, 1},
+                             {1, 2},
+                             {2, 1},
+                             {2, 2},
+                             {1, 4},
+                             {4, 1},
+                             {1, 3},
+                             {3, 1},
+                             {2, 3},
+                             {3, 2},
+                             {2, 4},
+                             {4, 2},
+                             {1, 8},
+                             {8, 1},
+                             {3, 3}})
     if (s.p * s.q == ranks) out.push_back(s);
   return out;
 }

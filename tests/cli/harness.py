@@ -88,14 +88,15 @@ class Suite:
         self.root = Path(self._tmp.name)
         self.passed, self.failed = 0, 0
 
-    def run(self, *args, ranks=1, timeout=TIMEOUT_SECONDS):
-        """gridlu ARGS on `ranks` ranks. -q keeps mpiexec's own banners off stderr, so what
-        is there comes from gridlu."""
+    def run(self, *args, ranks=1, timeout=TIMEOUT_SECONDS, env=None):
+        """gridlu ARGS on `ranks` ranks, with `env` added to the environment. -q keeps
+        mpiexec's own banners off stderr, so what is there comes from gridlu."""
         argv = [self.mpiexec, "-q", "-n", str(ranks), "--oversubscribe", self.gridlu,
                 *map(str, args)]
         # A session of its own, so that a hung run can be killed with all its ranks.
         proc = subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                                start_new_session=True, cwd=self.root)
+                                start_new_session=True, cwd=self.root,
+                                env={**os.environ, **(env or {})})
         try:
             out, err = proc.communicate(timeout=timeout)
             return Run(argv, proc.returncode, out, err, hung=False)
