@@ -26,10 +26,12 @@ struct dataset_shape {
 using attribute = std::variant<std::int64_t, double, std::string, std::vector<double>>;
 
 // An HDF5 file opened by every rank of a communicator (MPI-IO). Reads and writes of
-// matrices are collective and in two phases: each rank moves whole contiguous slabs of
-// rows between the file and memory, and one all-to-all per round of slabs carries them
-// between the slabs' readers/writers and the block-cyclic owners. Memory beyond the
-// matrix stays O(n * nb) per rank. Errors are agreed across ranks.
+// matrices are collective and in two phases: round by round, each process row takes a
+// stripe of whole file rows from a block it owns, its ranks each read or write a
+// contiguous share of the stripe's rows, and an all-to-all within the process row carries
+// every rank its columns (process columns when transposed). No HDF5 call moves more than
+// comm::transfer_limit() bytes; memory beyond the matrix is io_buffer_bytes. Errors are
+// agreed across ranks.
 class file {
 public:
   enum class mode { read, create };
@@ -82,6 +84,24 @@ private:
   std::string path_;
   std::unique_ptr<handles> h_;
 };
+
+// The peak bytes of the buffers file::read and file::write hold per rank beyond the
+// matrix, for a rows x cols matrix of element_bytes entries in blocks of `block` on
+// `shape`, with transfer limit `limit`: the largest over reading, writing and reading
+// transposed. For file rows along one matrix dimension (extent A) and file columns along
+// the other (extent C, shared by the Q ranks of a process row: Q = shape.q, or shape.p
+// when transposed):
+//   h      = min(block, A, max(1, floor(limit * Q / (C * element_bytes))))   stripe rows
+//   whole  = ceil(h / Q) * C        a rank's rows of the stripe, as in the file (x2:
+//                                   the rows and their pieces sorted by owner)
+//   piece  = h * ceil_cols          a rank's columns of the stripe, ceil_cols the most
+//                                   columns one rank owns (block-cyclic over Q)
+//   bytes  = element_bytes * (2 * whole + piece), or element_bytes * whole when Q = 1
+//            (the rows move straight to the matrix)
+// and the result is the larger of (A, C, Q) = (rows, cols, shape.q) and
+// (cols, rows, shape.p). Pure arithmetic: no MPI, no file.
+std::int64_t io_buffer_bytes(index_t rows, index_t cols, index_t block, grid_shape shape,
+                             std::int64_t element_bytes, std::int64_t limit);
 
 // Where a file is and which version of it: enough to notice that it changed, and to
 // tell whether two names reach the same file.

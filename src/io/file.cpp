@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <charconv>
+#include <climits>
 #include <cstdio>
 #include <cstring>
 #include <filesystem>
@@ -107,39 +108,97 @@ handle open_dataset(hid_t file, const std::string& name, const std::string& path
   return {check(id, quoted(name) + " in " + path + " is not a dataset"), H5Dclose};
 }
 
-// Which slab of file rows each rank moves, round by round. Slab s is the file rows of
-// block s of `along` (the matrix dimension that follows the file's rows); its entries go
-// to the process row (or column, if transposed) that owns that block.
-struct slab_plan {
+// Stripe height and the bound on read/write buffers (io.hpp): pure arithmetic shared
+// by the plan and io_buffer_bytes.
+index_t stripe_height(index_t block, index_t file_cols, int sharers, std::int64_t element_bytes,
+                      std::int64_t limit) {
+  const index_t row_bytes = std::max<index_t>(1, file_cols) * element_bytes;
+  return std::min(block, std::max<index_t>(1, limit * sharers / row_bytes));
+}
+
+// The largest number of elements one H5Dread/H5Dwrite moves: within the transfer limit
+// and within HDF5's 2 GiB per call.
+index_t call_elements(std::size_t element_bytes) {
+  const std::int64_t bytes = std::min<std::int64_t>(comm::transfer_limit(), INT_MAX);
+  return std::max<index_t>(1, bytes / static_cast<std::int64_t>(element_bytes));
+}
+
+// Calls f(row, col, rows, cols) for pieces of file rows [first, first + count) of `cols`
+// columns, each at most `most` elements: several whole rows, or, when a row alone is
+// longer, pieces of one row. Each piece is contiguous in a row-major buffer of the rows.
+template <class F>
+void for_each_call(index_t first, index_t count, index_t cols, index_t most, F&& f) {
+  if (cols <= most) {
+    const index_t rows = most / std::max<index_t>(cols, 1);
+    for (index_t t = 0; t < count; t += rows) f(first + t, 0, std::min(rows, count - t), cols);
+    return;
+  }
+  for (index_t t = 0; t < count; ++t)
+    for (index_t c = 0; c < cols; c += most) f(first + t, c, 1, std::min(most, cols - c));
+}
+
+// What each rank moves, round by round. Process row i (along: the process grid direction
+// that follows the file's rows) takes, one round after another, stripes of `height` file
+// rows of the blocks it owns; the Q ranks of process row i share a stripe, each reading
+// or writing a contiguous run of its whole rows, and an all-to-all within process row i
+// carries each rank its columns. No rank ever holds more than one stripe's share.
+struct stripe_plan {
   const process_grid& grid;
   cyclic_map along, across;
   bool transposed;
-  index_t file_cols;
+  index_t height;
 
-  int ranks() const { return grid.size(); }
-  index_t rounds() const { return (along.block_count() + ranks() - 1) / ranks(); }
-  // Each rank walks through its own contiguous share of the file, one slab a round, so
-  // every reader streams sequentially (which the kernel's read-ahead rewards).
-  index_t slab(index_t round, int rank) const {
-    const index_t s = rank * rounds() + round;
-    return round < rounds() && s < along.block_count() ? s : -1;
-  }
+  struct rows_range {
+    index_t first = 0, count = 0;  // count 0: nothing
+  };
+
+  const communicator& comm() const { return transposed ? grid.col() : grid.row(); }
+  int sharers() const { return across.procs(); }
+  index_t file_cols() const { return across.extent(); }
   int my_along() const { return transposed ? grid.mycol() : grid.myrow(); }
   int my_across() const { return transposed ? grid.myrow() : grid.mycol(); }
-  int along_of(int rank) const { return transposed ? rank % grid.pcols() : rank / grid.pcols(); }
-  int across_of(int rank) const { return transposed ? rank / grid.pcols() : rank % grid.pcols(); }
-  // Calls f(global, length) for each run of file columns that process d (across) owns, in
+  index_t stripes_per_block() const { return (along.block() + height - 1) / height; }
+  index_t blocks_of(int i) const {
+    return i < along.block_count() ? (along.block_count() - 1 - i) / along.procs() + 1 : 0;
+  }
+  // The stripe process row i moves in `round`.
+  rows_range stripe(index_t round, int i) const {
+    const index_t b = i + round / stripes_per_block() * along.procs();
+    const index_t offset = round % stripes_per_block() * height;
+    if (b >= along.block_count() || offset >= along.block_size(b)) return {};
+    return {along.block_start(b) + offset, std::min(height, along.block_size(b) - offset)};
+  }
+  index_t rounds() const {
+    index_t most = 0;
+    for (int i = 0; i < along.procs(); ++i)
+      if (const index_t blocks = blocks_of(i); blocks > 0) {
+        const index_t last = along.block_size(i + (blocks - 1) * along.procs());
+        most = std::max(most, (blocks - 1) * stripes_per_block() + (last + height - 1) / height);
+      }
+    return most;
+  }
+  // The most rows of a stripe, and of a rank's share of one.
+  index_t most_rows() const { return std::min(height, along.extent()); }
+  index_t most_share() const { return (most_rows() + sharers() - 1) / sharers(); }
+  // The rows of stripe s that rank d of the process row reads or writes.
+  rows_range share(rows_range s, int d) const {
+    const index_t lo = s.count * d / sharers(), hi = s.count * (d + 1) / sharers();
+    return {s.first + lo, hi - lo};
+  }
+  // Calls f(global, length) for each run of file columns that rank d (across) owns, in
   // order: whole blocks, so pieces move with contiguous copies.
   template <class F>
   void for_each_run(int d, F&& f) const {
     for (index_t b = d; b < across.block_count(); b += across.procs())
       f(across.block_start(b), across.block_size(b));
   }
-  // Moves the piece of slab s that this rank owns between the matrix and `piece`
-  // (h x local-across, row-major like the file): into the matrix, or out of it.
+  // Moves file rows r (inside one block this rank's process row owns) of this rank's
+  // columns between the matrix and `piece` (r.count x local-across, row-major like the
+  // file): into the matrix, or out of it.
   template <bool into_matrix, class M, class P>
-  void move_piece(M& m, index_t s, P* piece) const {
-    const index_t h = along.block_size(s), first = along.local(along.block_start(s));
+  void move_piece(M& m, rows_range r, P* piece) const {
+    if (r.count == 0) return;
+    const index_t h = r.count, first = along.local(r.first);
     const index_t width = across.local_extent(my_across());
     const auto move = [](auto* from, auto* to, index_t n) { std::copy_n(from, n, to); };
     if (transposed) {  // file row t is matrix column first + t: contiguous both ways
@@ -172,24 +231,27 @@ struct slab_plan {
 };
 
 template <scalar T>
-slab_plan make_plan(const process_grid& grid, const dist_matrix<T>& m, bool transposed) {
-  // The slabs move between the file's ranks and the matrix's owners: one grid for both.
+stripe_plan make_plan(const process_grid& grid, const dist_matrix<T>& m, bool transposed) {
+  // The stripes move between the file's ranks and the matrix's owners: one grid for both.
   if (&m.grid() != &grid)
     throw error(error_kind::internal,
                 "a matrix is read or written through a file opened on "
                 "another process grid");
   const auto& rows = m.layout().rows;
   const auto& cols = m.layout().cols;
-  return transposed ? slab_plan{grid, cols, rows, true, m.rows()}
-                    : slab_plan{grid, rows, cols, false, m.cols()};
+  const auto& across = transposed ? rows : cols;
+  const index_t h = stripe_height(across.block(), across.extent(), across.procs(), sizeof(T),
+                                  comm::transfer_limit());
+  return transposed ? stripe_plan{grid, cols, rows, true, h}
+                    : stripe_plan{grid, rows, cols, false, h};
 }
 
-handle select_rows(hid_t dset, index_t first, index_t count) {
+// The file rows [row, row + rows) x columns [col, col + cols) of a 2-D dataset (of a 1-D
+// one, elements [row, row + rows)).
+handle select_piece(hid_t dset, index_t row, index_t col, index_t rows, index_t cols) {
   handle space(check(H5Dget_space(dset), "H5Dget_space"), H5Sclose);
-  hsize_t dims[2] = {0, 1};  // a 1-D dataset leaves the second at 1 and reads only the first
-  H5Sget_simple_extent_dims(space.get(), dims, nullptr);
-  const hsize_t start[2] = {static_cast<hsize_t>(first), 0};
-  const hsize_t n[2] = {static_cast<hsize_t>(count), dims[1]};
+  const hsize_t start[2] = {static_cast<hsize_t>(row), static_cast<hsize_t>(col)};
+  const hsize_t n[2] = {static_cast<hsize_t>(rows), static_cast<hsize_t>(cols)};
   check(H5Sselect_hyperslab(space.get(), H5S_SELECT_SET, start, nullptr, n, nullptr),
         "H5Sselect_hyperslab", error_kind::internal);
   return space;
@@ -201,25 +263,56 @@ handle memory_space(index_t elements) {
           H5Sclose};
 }
 
-// Reads file rows [first, first + count) as T, widening a real dataset into a complex T.
+// Reads the file piece at (row, col), rows x width, as T into `to` (row-major): one
+// call. A real dataset read into a complex T lands in the first half of the piece's bytes
+// and is widened in place, back to front (real j is read before entry j / 2 overwrites
+// it): no second buffer.
 template <scalar T>
-std::vector<T> read_slab(hid_t dset, bool file_complex, index_t first, index_t count, index_t cols,
-                         const std::string& what) {
-  const auto file_space = select_rows(dset, first, count);
-  const auto mem_space = memory_space(count * cols);
-  std::vector<T> out(static_cast<std::size_t>(count * cols));
-  if (scalar_traits<T>::is_complex && !file_complex) {
-    std::vector<real_t<T>> real(out.size());
-    const auto type = h5::memory_type<real_t<T>>();
-    check(H5Dread(dset, type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT, real.data()),
-          "cannot read " + what + " (truncated or damaged file?)");
-    std::copy(real.begin(), real.end(), out.begin());
-  } else {
-    const auto type = h5::memory_type<T>();
-    check(H5Dread(dset, type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT, out.data()),
-          "cannot read " + what + " (truncated or damaged file?)");
-  }
-  return out;
+void read_piece(hid_t dset, bool file_complex, index_t row, index_t col, index_t rows,
+                index_t width, T* to, const std::string& what) {
+  const bool widen = scalar_traits<T>::is_complex && !file_complex;
+  const auto type = widen ? h5::memory_type<real_t<T>>() : h5::memory_type<T>();
+  const auto file_space = select_piece(dset, row, col, rows, width);
+  const auto mem_space = memory_space(rows * width);
+  check(H5Dread(dset, type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT, to),
+        "cannot read " + what + " (truncated or damaged file?)");
+  if constexpr (scalar_traits<T>::is_complex)
+    if (widen) {  // complex entries are arrays of two reals ([complex.numbers])
+      auto* parts = reinterpret_cast<real_t<T>*>(to);
+      for (index_t j = rows * width - 1; j >= 0; --j) {
+        const real_t<T> v = parts[j];
+        parts[2 * j + 1] = 0;
+        parts[2 * j] = v;
+      }
+    }
+}
+
+// Reads file rows [first, first + count) into `out` (row-major, `cols` wide), in calls
+// within the transfer limit.
+template <scalar T>
+void read_rows(hid_t dset, bool file_complex, index_t first, index_t count, index_t cols, T* out,
+               const std::string& what) {
+  for_each_call(first, count, cols, call_elements(sizeof(T)),
+                [&](index_t row, index_t col, index_t rows, index_t width) {
+                  read_piece(dset, file_complex, row, col, rows, width,
+                             out + (row - first) * cols + col, what);
+                });
+}
+
+// Writes `in` (row-major, `cols` wide) to file rows [first, first + count), in calls
+// within the transfer limit.
+template <scalar T>
+void write_rows(hid_t dset, index_t first, index_t count, index_t cols, const T* in,
+                const std::string& what) {
+  const auto type = h5::memory_type<T>();
+  for_each_call(first, count, cols, call_elements(sizeof(T)),
+                [&](index_t row, index_t col, index_t rows, index_t width) {
+                  const auto file_space = select_piece(dset, row, col, rows, width);
+                  const auto mem_space = memory_space(rows * width);
+                  check(H5Dwrite(dset, type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT,
+                                 in + (row - first) * cols + col),
+                        "cannot write " + what + " (disk full?)", error_kind::output);
+                });
 }
 
 }  // namespace
@@ -320,70 +413,96 @@ dataset_shape file::shape(const std::string& name) const {
   return describe_dataset(open_dataset(h_->file.get(), name, path_).get());
 }
 
+namespace {
+
+// Read side of a round: this rank's rows of the stripe (row-major, all file columns) cut
+// into the runs of columns each rank of the process row owns, in rank order.
+template <scalar T>
+void pack_for_owners(const stripe_plan& plan, const std::vector<T>& rows, index_t count,
+                     std::vector<T>& sent, std::vector<index_t>& send_counts) {
+  sent.resize(static_cast<std::size_t>(count * plan.file_cols()));
+  T* next = sent.data();
+  for (int d = 0; d < plan.sharers(); ++d) {
+    for (index_t t = 0; t < count; ++t)
+      plan.for_each_run(d, [&](index_t g, index_t len) {
+        next = std::copy_n(rows.data() + t * plan.file_cols() + g, len, next);
+      });
+    send_counts[static_cast<std::size_t>(d)] = count * plan.across.local_extent(d);
+  }
+}
+
+// Write side: the pieces every rank of the process row sent (count rows of its columns
+// each, in rank order) put together into whole rows.
+template <scalar T>
+void assemble_rows(const stripe_plan& plan, const std::vector<T>& received, index_t count,
+                   std::vector<T>& rows) {
+  rows.resize(static_cast<std::size_t>(count * plan.file_cols()));
+  const T* next = received.data();
+  for (int d = 0; d < plan.sharers(); ++d)
+    for (index_t t = 0; t < count; ++t)
+      plan.for_each_run(d, [&](index_t g, index_t len) {
+        std::copy_n(next, len, rows.data() + t * plan.file_cols() + g);
+        next += len;
+      });
+}
+
+}  // namespace
+
 template <scalar T>
 void file::read(const std::string& name, dist_matrix<T>& m, bool transposed) const {
   const auto dset = open_dataset(h_->file.get(), name, path_);
   const auto s = describe_dataset(dset.get());
-  const slab_plan plan = make_plan(*grid_, m, transposed);
-  const index_t file_rows = plan.along.extent();
+  const stripe_plan plan = make_plan(*grid_, m, transposed);
+  const index_t file_rows = plan.along.extent(), file_cols = plan.file_cols();
   const bool fits = s.dims.size() == 2
-                        ? s.dims[0] == file_rows && s.dims[1] == plan.file_cols
-                        : s.dims.size() == 1 && s.dims[0] == file_rows && plan.file_cols == 1;
+                        ? s.dims[0] == file_rows && s.dims[1] == file_cols
+                        : s.dims.size() == 1 && s.dims[0] == file_rows && file_cols == 1;
   const std::string what = quoted(name) + " from " + path_;
   // Callers check the inputs' shapes first, but datasets of other files (saved factors,
   // checkpoints) reach here as the file has them: a misfit is the file's, not gridlu's.
   if (!fits || !s.usable || (s.is_complex && !scalar_traits<T>::is_complex))
     throw error(error_kind::input, quoted(name) + " in " + path_ + " is " + shape_text(s.dims) +
                                        " " + s.type + "; expected " +
-                                       shape_text({file_rows, plan.file_cols}) + " " +
+                                       shape_text({file_rows, file_cols}) + " " +
                                        std::string(scalar_traits<T>::name) +
                                        (scalar_traits<T>::is_complex ? " (or real)" : ""));
-  const int me = grid_->rank();
-  const index_t mine_across = plan.across.local_extent(plan.my_across());
+  const int i = plan.my_along(), me = plan.my_across();
+  const index_t width = plan.across.local_extent(me);
   const handle type(H5Dget_type(dset.get()), H5Tclose);
   const read_ahead ahead(path_, dset.get(),
-                         plan.file_cols * static_cast<index_t>(H5Tget_size(type.get())));
-  std::vector<T> slab, sent, received;
+                         file_cols * static_cast<index_t>(H5Tget_size(type.get())));
+  const auto q = static_cast<std::size_t>(plan.sharers());
+  // Sized once for the largest stripe: grown round by round, a vector can take twice
+  // what it needs.
+  std::vector<T> rows, sent, received;
+  rows.reserve(static_cast<std::size_t>(plan.most_share() * file_cols));
+  if (q > 1) {
+    sent.reserve(rows.capacity());
+    received.reserve(static_cast<std::size_t>(plan.most_rows() * width));
+  }
   for (index_t round = 0; round < plan.rounds(); ++round) {
-    const index_t s_me = plan.slab(round, me);
-    if (const index_t s_next = plan.slab(round + 1, me); s_next >= 0)
-      ahead.rows(plan.along.block_start(s_next), plan.along.block_size(s_next));
+    const auto stripe = plan.stripe(round, i);
+    const auto mine = plan.share(stripe, me);
+    if (const auto next = plan.share(plan.stripe(round + 1, i), me); next.count > 0)
+      ahead.rows(next.first, next.count);
     comm::together(grid_->all(), [&] {
-      if (s_me < 0) return;
-      slab = read_slab<T>(dset.get(), s.is_complex, plan.along.block_start(s_me),
-                          plan.along.block_size(s_me), plan.file_cols, what);
+      rows.resize(static_cast<std::size_t>(mine.count * file_cols));
+      read_rows(dset.get(), s.is_complex, mine.first, mine.count, file_cols, rows.data(), what);
     });
-    std::vector<index_t> send_counts(static_cast<std::size_t>(plan.ranks()), 0),
-        recv_counts(send_counts);
-    sent.clear();
-    if (s_me >= 0) {
-      const index_t h = plan.along.block_size(s_me);
-      const int owner = plan.along.block_owner(s_me);
-      for (int r = 0; r < plan.ranks(); ++r) {
-        if (plan.along_of(r) != owner) continue;
-        const int d = plan.across_of(r);
-        for (index_t t = 0; t < h; ++t)
-          plan.for_each_run(d, [&](index_t g, index_t len) {
-            const T* from = slab.data() + t * plan.file_cols + g;
-            sent.insert(sent.end(), from, from + len);
-          });
-        send_counts[r] = h * plan.across.local_extent(d);
-      }
+    if (q == 1) {  // the rows are all this rank's: no exchange
+      plan.move_piece<true>(m, mine, rows.data());
+      continue;
     }
-    for (int r = 0; r < plan.ranks(); ++r) {
-      const index_t s_r = plan.slab(round, r);
-      if (s_r >= 0 && plan.along.block_owner(s_r) == plan.my_along())
-        recv_counts[r] = plan.along.block_size(s_r) * mine_across;
-    }
+    std::vector<index_t> send_counts(q), recv_counts(q);
+    pack_for_owners(plan, rows, mine.count, sent, send_counts);
+    for (std::size_t d = 0; d < q; ++d)
+      recv_counts[d] = plan.share(stripe, static_cast<int>(d)).count * width;
     received.resize(static_cast<std::size_t>(
         std::accumulate(recv_counts.begin(), recv_counts.end(), index_t{0})));
-    comm::all_to_all(grid_->all(), sent.data(), send_counts, received.data(), recv_counts);
+    comm::all_to_all(plan.comm(), sent.data(), send_counts, received.data(), recv_counts);
     const T* next = received.data();
-    for (int r = 0; r < plan.ranks(); ++r) {
-      if (recv_counts[r] == 0) continue;
-      plan.move_piece<true>(m, plan.slab(round, r), next);
-      next += recv_counts[r];
-    }
+    for (std::size_t d = 0; d < q; next += recv_counts[d], ++d)
+      plan.move_piece<true>(m, plan.share(stripe, static_cast<int>(d)), next);
   }
 }
 
@@ -394,20 +513,23 @@ std::uint64_t file::checksum(const std::string& name, bool transposed) const {
   if (s.dims.empty() || s.dims.size() > 2 || !s.usable)
     throw error(error_kind::input, quoted(name) + " in " + path_ + " is not a matrix of numbers");
   const index_t file_rows = s.dims[0], file_cols = s.dims.size() == 2 ? s.dims[1] : 1;
-  const cyclic_map slabs(file_rows, 64, 1);
+  const std::string what = quoted(name) + " from " + path_;
   std::uint64_t sum = 0;
   comm::together(grid_->all(), [&] {
-    for (index_t b = grid_->rank(); b < slabs.block_count(); b += grid_->size()) {
-      const index_t first = slabs.block_start(b), h = slabs.block_size(b);
-      const auto slab = read_slab<T>(dset.get(), s.is_complex, first, h, file_cols,
-                                     quoted(name) + " from " + path_);
-      for (index_t t = 0; t < h; ++t)
-        for (index_t c = 0; c < file_cols; ++c) {
-          const T& v = slab[t * file_cols + c];
-          sum ^= transposed ? detail::entry_hash(c, first + t, v)
-                            : detail::entry_hash(first + t, c, v);
-        }
-    }
+    std::vector<T> piece;
+    index_t call = 0;  // the ranks take the reads in turn
+    for_each_call(0, file_rows, file_cols, call_elements(sizeof(T)),
+                  [&](index_t row, index_t col, index_t rows, index_t width) {
+                    if (call++ % grid_->size() != grid_->rank()) return;
+                    piece.resize(static_cast<std::size_t>(rows * width));
+                    read_piece(dset.get(), s.is_complex, row, col, rows, width, piece.data(), what);
+                    for (index_t t = 0; t < rows; ++t)
+                      for (index_t c = 0; c < width; ++c) {
+                        const T& v = piece[static_cast<std::size_t>(t * width + c)];
+                        sum ^= transposed ? detail::entry_hash(col + c, row + t, v)
+                                          : detail::entry_hash(row + t, col + c, v);
+                      }
+                  });
   });
   comm::bit_xor(grid_->all(), &sum, 1);
   return sum;
@@ -415,11 +537,11 @@ std::uint64_t file::checksum(const std::string& name, bool transposed) const {
 
 template <scalar T>
 void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dimensional) {
-  const slab_plan plan = make_plan(*grid_, m, false);
-  const index_t rows = m.rows(), cols = m.cols();
+  const stripe_plan plan = make_plan(*grid_, m, false);
+  const index_t rows_total = m.rows(), cols = m.cols();
   handle dset;
   comm::together(grid_->all(), [&] {
-    const hsize_t dims[2] = {static_cast<hsize_t>(rows), static_cast<hsize_t>(cols)};
+    const hsize_t dims[2] = {static_cast<hsize_t>(rows_total), static_cast<hsize_t>(cols)};
     const handle space(check(H5Screate_simple(one_dimensional ? 1 : 2, dims, nullptr),
                              "H5Screate_simple", error_kind::internal),
                        H5Sclose);
@@ -433,50 +555,41 @@ void file::write(const std::string& name, const dist_matrix<T>& m, bool one_dime
         check(id, "cannot create dataset " + quoted(name) + " in " + path_, error_kind::output),
         H5Dclose);
   });
-  const int me = grid_->rank();
-  const index_t mine_across = plan.across.local_extent(plan.my_across());
-  std::vector<T> slab, sent, received;
+  const int i = plan.my_along(), me = plan.my_across();
+  const index_t width = plan.across.local_extent(me);
+  const auto q = static_cast<std::size_t>(plan.sharers());
+  const std::string what = quoted(name) + " to " + path_;
+  std::vector<T> rows, sent, received;  // sized once, as in read
+  rows.reserve(static_cast<std::size_t>(plan.most_share() * cols));
+  if (q > 1) {
+    received.reserve(rows.capacity());
+    sent.reserve(static_cast<std::size_t>(plan.most_rows() * width));
+  }
   for (index_t round = 0; round < plan.rounds(); ++round) {
-    std::vector<index_t> send_counts(static_cast<std::size_t>(plan.ranks()), 0),
-        recv_counts(send_counts);
-    sent.clear();
-    for (int r = 0; r < plan.ranks(); ++r) {
-      const index_t s_r = plan.slab(round, r);
-      if (s_r < 0 || plan.along.block_owner(s_r) != plan.my_along()) continue;
-      const index_t count = plan.along.block_size(s_r) * mine_across;
-      sent.resize(sent.size() + static_cast<std::size_t>(count));
-      plan.move_piece<false>(m, s_r, sent.data() + sent.size() - count);
-      send_counts[r] = count;
+    const auto stripe = plan.stripe(round, i);
+    const auto mine = plan.share(stripe, me);
+    if (q == 1) {  // the rows are all this rank's: no exchange
+      rows.resize(static_cast<std::size_t>(mine.count * cols));
+      plan.move_piece<false>(m, mine, rows.data());
+      comm::together(grid_->all(), [&] {
+        write_rows(dset.get(), mine.first, mine.count, cols, rows.data(), what);
+      });
+      continue;
     }
-    const index_t s_me = plan.slab(round, me);
-    if (s_me >= 0) {
-      const index_t h = plan.along.block_size(s_me);
-      for (int r = 0; r < plan.ranks(); ++r)
-        if (plan.along_of(r) == plan.along.block_owner(s_me))
-          recv_counts[r] = h * plan.across.local_extent(plan.across_of(r));
+    std::vector<index_t> send_counts(q), recv_counts(q);
+    sent.resize(static_cast<std::size_t>(stripe.count * width));
+    T* next = sent.data();
+    for (std::size_t d = 0; d < q; next += send_counts[d], ++d) {
+      const auto theirs = plan.share(stripe, static_cast<int>(d));
+      plan.move_piece<false>(m, theirs, next);
+      send_counts[d] = theirs.count * width;
+      recv_counts[d] = mine.count * plan.across.local_extent(static_cast<int>(d));
     }
-    received.resize(static_cast<std::size_t>(
-        std::accumulate(recv_counts.begin(), recv_counts.end(), index_t{0})));
-    comm::all_to_all(grid_->all(), sent.data(), send_counts, received.data(), recv_counts);
+    received.resize(static_cast<std::size_t>(mine.count * cols));
+    comm::all_to_all(plan.comm(), sent.data(), send_counts, received.data(), recv_counts);
     comm::together(grid_->all(), [&] {
-      if (s_me < 0) return;
-      const index_t h = plan.along.block_size(s_me);
-      slab.resize(static_cast<std::size_t>(h * cols));
-      const T* next = received.data();
-      for (int r = 0; r < plan.ranks(); ++r) {
-        if (recv_counts[r] == 0) continue;
-        for (index_t t = 0; t < h; ++t)
-          plan.for_each_run(plan.across_of(r), [&](index_t g, index_t len) {
-            std::copy_n(next, len, slab.data() + t * cols + g);
-            next += len;
-          });
-      }
-      const auto file_space = select_rows(dset.get(), plan.along.block_start(s_me), h);
-      const auto mem_space = memory_space(h * cols);
-      const auto type = h5::memory_type<T>();
-      check(H5Dwrite(dset.get(), type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT,
-                     slab.data()),
-            "cannot write " + quoted(name) + " to " + path_ + " (disk full?)", error_kind::output);
+      assemble_rows(plan, received, mine.count, rows);
+      write_rows(dset.get(), mine.first, mine.count, cols, rows.data(), what);
     });
   }
 }
@@ -490,9 +603,15 @@ void file::write_indices(const std::string& name, const std::vector<index_t>& va
                          H5P_DEFAULT, H5P_DEFAULT),
               "cannot create dataset " + quoted(name) + " in " + path_, error_kind::output),
         H5Dclose);
-    if (grid_->rank() == 0)
-      check(H5Dwrite(dset.get(), H5T_NATIVE_INT64, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()),
-            "cannot write " + quoted(name) + " to " + path_, error_kind::output);
+    if (grid_->rank() != 0) return;
+    for_each_call(0, static_cast<index_t>(n), 1, call_elements(sizeof(index_t)),
+                  [&](index_t first, index_t, index_t count, index_t) {
+                    const auto file_space = select_piece(dset.get(), first, 0, count, 1);
+                    const auto mem_space = memory_space(count);
+                    check(H5Dwrite(dset.get(), H5T_NATIVE_INT64, mem_space.get(), file_space.get(),
+                                   H5P_DEFAULT, values.data() + first),
+                          "cannot write " + quoted(name) + " to " + path_, error_kind::output);
+                  });
   });
 }
 
@@ -506,8 +625,14 @@ std::vector<index_t> file::read_indices(const std::string& name) const {
                   quoted(name) + " in " + path_ + " is not a 1-D integer dataset");
     require_stored(dset.get(), s, quoted(name) + " in " + path_);
     values.resize(static_cast<std::size_t>(s.dims[0]));
-    check(H5Dread(dset.get(), H5T_NATIVE_INT64, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()),
-          "cannot read " + quoted(name) + " from " + path_);
+    for_each_call(0, s.dims[0], 1, call_elements(sizeof(index_t)),
+                  [&](index_t first, index_t, index_t count, index_t) {
+                    const auto file_space = select_piece(dset.get(), first, 0, count, 1);
+                    const auto mem_space = memory_space(count);
+                    check(H5Dread(dset.get(), H5T_NATIVE_INT64, mem_space.get(), file_space.get(),
+                                  H5P_DEFAULT, values.data() + first),
+                          "cannot read " + quoted(name) + " from " + path_);
+                  });
   });
   return values;
 }
@@ -724,6 +849,21 @@ description describe(const std::string& path) {
       d.groups.push_back({name, {}, all_attributes(obj.get())});
   }
   return d;
+}
+
+std::int64_t io_buffer_bytes(index_t rows, index_t cols, index_t block, grid_shape shape,
+                             std::int64_t element_bytes, std::int64_t limit) {
+  // along: the matrix dimension of the file's rows; the file has `file_cols` columns
+  // shared by `sharers` ranks (a process row, or a process column when transposed).
+  const auto direction = [&](index_t along, index_t file_cols, int sharers) {
+    const index_t h =
+        std::min(along, stripe_height(block, file_cols, sharers, element_bytes, limit));
+    const index_t whole = (h + sharers - 1) / sharers * file_cols;
+    const index_t piece = h * cyclic_map(file_cols, block, sharers).local_extent(0);
+    if (sharers == 1) return element_bytes * whole;  // no exchange
+    return element_bytes * (2 * whole + piece);
+  };
+  return std::max(direction(rows, cols, shape.q), direction(cols, rows, shape.p));
 }
 
 #define INSTANTIATE(T)                                                           \

@@ -221,7 +221,9 @@ TEST_F(TransferLimit, GatherScatterAndAllGatherInRoundsKeepRankOrder) {
   EXPECT_EQ(all, expected);
   std::vector<double> gathered(me == 0 ? expected.size() : 0, -1.0);
   comm::gather(grid.all(), mine.data(), counts[me], gathered.data(), counts, 0);
-  if (me == 0) EXPECT_EQ(gathered, expected);
+  if (me == 0) {
+    EXPECT_EQ(gathered, expected);
+  }
   std::vector<double> back(mine.size(), -1.0);
   comm::scatter(grid.all(), gathered.data(), counts, back.data(), counts[me], 0);
   EXPECT_EQ(back, mine);

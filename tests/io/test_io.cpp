@@ -352,6 +352,128 @@ TEST(IoIndices, RoundTripOnEveryRank) {
   }
 }
 
+// Transfer limits that split every HDF5 call: 24 bytes holds less than one row of any
+// case here (each row goes in column pieces, one stripe row per round); 1000 bytes holds
+// a few whole rows (stripes of fewer rows than a block, several rows per call).
+constexpr std::int64_t split_limits[] = {24, 1000};
+
+// Sets the transfer limit for a scope and restores the one before.
+class limit_scope {
+public:
+  explicit limit_scope(std::int64_t bytes) : saved_(comm::transfer_limit()) {
+    comm::set_transfer_limit(bytes);
+  }
+  ~limit_scope() { comm::set_transfer_limit(saved_); }
+  limit_scope(const limit_scope&) = delete;
+  limit_scope& operator=(const limit_scope&) = delete;
+
+private:
+  std::int64_t saved_;
+};
+
+// Sizes not multiples of their blocks, the blocks several stripes high at limit 1000.
+constexpr sizes split_cases[] = {{61, 37, 8}, {37, 61, 13}, {5, 70, 16}};
+
+// Under limits that split every call, writing, reading, reading transposed and the
+// file's checksums give the filled values themselves (random_entry, a pure function of
+// the position) and the checksum by definition, as without a limit; a file written
+// split reads the same unsplit and the other way round.
+TYPED_TEST(Io, SplitTransfersGiveTheSameMatrixAndChecksums) {
+  using T = TypeParam;
+  const scratch_dir dir;
+  for (const auto shape : shapes_for_world()) {
+    const process_grid grid(MPI_COMM_WORLD, shape);
+    for (const auto [m, n, nb] : split_cases)
+      for (const std::int64_t limit : split_limits) {
+        SCOPED_TRACE(label(shape, m, n, nb) + " limit " + std::to_string(limit));
+        const auto entry = [&](index_t i, index_t j) { return random_entry<T>(7 * m + n, i, j); };
+        const auto transpose = [&](index_t i, index_t j) { return entry(j, i); };
+        const std::string split = dir.file("split.h5"), whole = dir.file("whole.h5");
+        dist_matrix<T> a(grid, m, n, nb);
+        a.fill(entry);
+        write_file(grid, whole, "a", a);
+        {
+          const limit_scope low(limit);
+          write_file(grid, split, "a", a);
+        }
+        for (const auto& path : {split, whole}) {
+          const io::file f(grid, path, io::file::mode::read);
+          const limit_scope low(limit);
+          dist_matrix<T> b(grid, m, n, nb == 8 ? 5 : 8);
+          f.read("a", b);
+          EXPECT_EQ(local_mismatches(b, entry), 0);
+          dist_matrix<T> t(grid, n, m, nb);
+          f.read("a", t, true);
+          EXPECT_EQ(local_mismatches(t, transpose), 0);
+          EXPECT_EQ(f.checksum<T>("a"), checksum_by_definition<T>(m, n, entry));
+          EXPECT_EQ(f.checksum<T>("a", true), checksum_by_definition<T>(n, m, transpose));
+        }
+        const io::file f(grid, split, io::file::mode::read);
+        dist_matrix<T> c(grid, m, n, 3);
+        f.read("a", c);  // at the default limit
+        EXPECT_EQ(local_mismatches(c, entry), 0);
+        const auto gathered = c.gather();
+        if (is_root()) {
+          EXPECT_EQ(gathered_mismatches(gathered, m, n, entry), 0);
+        }
+      }
+  }
+}
+
+// A real dataset widened into complex under split calls: real parts the file's values,
+// imaginary parts exactly zero, read straight and transposed.
+TYPED_TEST(IoComplex, SplitWideningKeepsTheValues) {
+  using T = TypeParam;
+  using R = real_t<T>;
+  const scratch_dir dir;
+  for (const auto shape : shapes_for_world()) {
+    const process_grid grid(MPI_COMM_WORLD, shape);
+    for (const auto [m, n, nb] : split_cases)
+      for (const std::int64_t limit : split_limits) {
+        SCOPED_TRACE(label(shape, m, n, nb) + " limit " + std::to_string(limit));
+        const auto real_entry = [&](index_t i, index_t j) { return random_entry<R>(m + n, i, j); };
+        const auto promoted = [&](index_t i, index_t j) { return T(real_entry(i, j), R(0)); };
+        const std::string path = dir.file("real.h5");
+        {
+          dist_matrix<R> r(grid, m, n, nb);
+          r.fill(real_entry);
+          write_file(grid, path, "r", r);
+        }
+        const io::file f(grid, path, io::file::mode::read);
+        const limit_scope low(limit);
+        dist_matrix<T> c(grid, m, n, nb);
+        c.fill([](index_t, index_t) { return T(3, 4); });
+        f.read("r", c);
+        EXPECT_EQ(local_mismatches(c, promoted), 0);
+        dist_matrix<T> t(grid, n, m, nb);
+        f.read("r", t, true);
+        EXPECT_EQ(local_mismatches(t, [&](index_t i, index_t j) { return promoted(j, i); }), 0);
+        EXPECT_EQ(f.checksum<T>("r"), checksum_by_definition<T>(m, n, promoted));
+      }
+  }
+}
+
+// Index datasets longer than one call: written and read in pieces of three entries, and
+// the same values read at the default limit.
+TEST(IoIndices, SplitRoundTrip) {
+  const scratch_dir dir;
+  const process_grid grid(MPI_COMM_WORLD, shapes_for_world().front());
+  std::vector<index_t> values(50);
+  for (std::size_t k = 0; k < values.size(); ++k)
+    values[k] = static_cast<index_t>(k * k) - 7 + (index_t{1} << 40) * static_cast<index_t>(k % 3);
+  const std::string path = dir.file("indices.h5");
+  {
+    const limit_scope low(24);
+    io::file f(grid, path, io::file::mode::create);
+    f.write_indices("pivots", values);
+    f.close();
+  }
+  const io::file f(grid, path, io::file::mode::read);
+  EXPECT_EQ(f.read_indices("pivots"), values);
+  const limit_scope low(24);
+  EXPECT_EQ(f.read_indices("pivots"), values);
+}
+
 TYPED_TEST(Io, MissingFileOrDatasetIsAnInputError) {
   using T = TypeParam;
   const scratch_dir dir;
