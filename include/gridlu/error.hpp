@@ -25,4 +25,19 @@ private:
   error_kind kind_;
 };
 
+// A failure the other ranks cannot hear of: they may be waiting inside a collective this
+// rank has left. Nothing catches it, so std::terminate runs before any destructor could
+// enter a collective, and the command's terminate handler ends the whole job. Never
+// thrown inside comm::together (that would agree on it while the others wait elsewhere).
+class lone_failure : public std::exception {
+public:
+  lone_failure(error_kind kind, const std::string& what) : what_(what), kind_(kind) {}
+  const char* what() const noexcept override { return what_.c_str(); }
+  error_kind kind() const { return kind_; }
+
+private:
+  std::string what_;
+  error_kind kind_;
+};
+
 }  // namespace gridlu

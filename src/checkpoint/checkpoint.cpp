@@ -147,7 +147,9 @@ void directory::record_completion(const std::string& text) const {
 
 bool directory::has_state() const {
   std::int64_t present = 0;
-  if (grid_.rank() == 0) present = fs::exists(state_path()) ? 1 : 0;
+  comm::together(grid_.all(), [&] {
+    if (grid_.rank() == 0) present = fs::exists(state_path()) ? 1 : 0;
+  });
   comm::broadcast(grid_.all(), &present, 1, 0);
   return present != 0;
 }

@@ -7,11 +7,13 @@
 #include <csignal>
 #include <cstdio>
 #include <cstdlib>
+#include <exception>
 #include <filesystem>
 #include <fstream>
 #include <functional>
 #include <map>
 #include <memory>
+#include <new>
 #include <nlohmann/json.hpp>
 
 #include "gridlu/io.hpp"
@@ -52,7 +54,7 @@ constexpr const char* exit_codes_help =
     "Exit codes: 0 solved, 1 internal error, 2 usage error, 3 input data error,\n"
     "            4 numerical failure (A exactly singular, or X not finite): no X written,\n"
     "            5 stopped early (with a checkpoint if asked),\n"
-    "            6 output or resource failure (disk full, not writable, busy),\n"
+    "            6 output or resource failure (disk full, not writable, busy, out of memory),\n"
     "            7 X written but with fewer trusted digits than --require-digits asks.";
 
 struct common_options {
@@ -708,7 +710,40 @@ subcommand add_info(CLI::App& app, double) {
 
 }  // namespace
 
+// Runs in place of unwinding for an exception that only this rank has (nothing catches
+// it, see lone_failure): the other ranks may wait in a collective for ever, and unwinding
+// could enter one (a file's collective close), so the whole job ends here. Formats into a
+// fixed buffer: the failure may be the lack of memory.
+[[noreturn]] void end_job_alone() {
+  int code = exit_code(error_kind::internal);
+  char line[512];
+  const auto say = [&](const char* what, const char* detail) {
+    std::snprintf(line, sizeof line, "gridlu: error: %s%s on rank %d\n", what, detail,
+                  comm::world_rank());
+  };
+  try {
+    if (const auto e = std::current_exception()) std::rethrow_exception(e);
+    say("internal failure", "");
+  } catch (const std::bad_alloc&) {
+    code = exit_code(error_kind::output);
+    say("out of memory", "");
+  } catch (const lone_failure& e) {
+    code = exit_code(e.kind());
+    say(e.what(), "");
+  } catch (const error& e) {
+    code = exit_code(e.kind());
+    say(e.what(), "");
+  } catch (const std::exception& e) {
+    say("internal failure: ", e.what());
+  } catch (...) {
+    say("internal failure", "");
+  }
+  std::fputs(line, stderr);
+  comm::abort_job(code);
+}
+
 int main(int argc, char** argv) {
+  std::set_terminate(end_job_alone);
   // Before MPI starts, while the parent is still the launcher; it outlives MPI_Finalize.
   const workflows::launcher_watch watch(exit_code(error_kind::output));
   gridlu::mpi_session mpi(argc, argv);
@@ -741,12 +776,10 @@ int main(int argc, char** argv) {
       if (*c.app) return c.run();
     return exit_code(error_kind::usage);
   } catch (const gridlu::error& e) {
-    // Errors reaching here were agreed by all ranks (or raised by all alike).
+    // Errors reaching here were agreed by all ranks (or raised by all alike). Any other
+    // exception is one rank's alone and has no handler: end_job_alone, without unwinding.
     if (rank == 0) std::fprintf(stderr, "gridlu: error: %s\n", e.what());
     if (comm::any_rank(io::left_unclosed())) comm::end_without_finalize(exit_code(e.kind()));
     return exit_code(e.kind());
-  } catch (const std::exception& e) {
-    std::fprintf(stderr, "gridlu: error: internal failure on rank %d: %s\n", rank, e.what());
-    comm::abort_job(exit_code(error_kind::internal));
   }
 }

@@ -196,8 +196,12 @@ void end_without_finalize(int code) {
 }
 
 void abort_job(int code) {
-  MPI_Abort(MPI_COMM_WORLD, code);
-  std::abort();  // MPI_Abort does not return; this tells the compiler so
+  std::fflush(nullptr);
+  int started = 0, finished = 0;
+  MPI_Initialized(&started);
+  MPI_Finalized(&finished);
+  if (started && !finished) MPI_Abort(MPI_COMM_WORLD, code);
+  std::_Exit(code);  // outside MPI's lifetime this rank is the whole job
 }
 
 std::string library_version() {

@@ -11,6 +11,7 @@
 #include <numeric>
 
 #include "comm/collectives.hpp"
+#include "comm/fault.hpp"
 #include "gridlu/generate.hpp"
 #include "gridlu/io.hpp"
 #include "instantiate.hpp"
@@ -292,6 +293,8 @@ void read_piece(hid_t dset, bool file_complex, index_t row, index_t col, index_t
 template <scalar T>
 void read_rows(hid_t dset, bool file_complex, index_t first, index_t count, index_t cols, T* out,
                const std::string& what) {
+  if (fault::hit("read"))
+    throw error(error_kind::input, "cannot read " + what + ": injected fault");
   for_each_call(first, count, cols, call_elements(sizeof(T)),
                 [&](index_t row, index_t col, index_t rows, index_t width) {
                   read_piece(dset, file_complex, row, col, rows, width,
@@ -304,6 +307,8 @@ void read_rows(hid_t dset, bool file_complex, index_t first, index_t count, inde
 template <scalar T>
 void write_rows(hid_t dset, index_t first, index_t count, index_t cols, const T* in,
                 const std::string& what) {
+  if (fault::hit("write"))
+    throw error(error_kind::output, "cannot write " + what + ": injected fault");
   const auto type = h5::memory_type<T>();
   for_each_call(first, count, cols, call_elements(sizeof(T)),
                 [&](index_t row, index_t col, index_t rows, index_t width) {
@@ -313,6 +318,22 @@ void write_rows(hid_t dset, index_t first, index_t count, index_t cols, const T*
                                  in + (row - first) * cols + col),
                         "cannot write " + what + " (disk full?)", error_kind::output);
                 });
+}
+
+// Ranks started in different directories, or on nodes that mount different file systems,
+// can find different files under one name. Read as one, they would send the ranks
+// different ways later, into collectives that never match: refused at the open instead.
+void require_same_file(const process_grid& grid, const std::string& path) {
+  const auto id = identify(path);
+  const double mine[2] = {static_cast<double>(id.size), id.mtime};
+  double first[2] = {mine[0], mine[1]};
+  comm::broadcast(grid.all(), first, 2, 0);
+  comm::together(grid.all(), [&] {
+    if (mine[0] != first[0] || mine[1] != first[1])
+      throw error(error_kind::input, path + " on rank " + std::to_string(grid.rank()) +
+                                         " is not the file rank 0 reads (another size or "
+                                         "modification time); every rank must see one file");
+  });
 }
 
 }  // namespace
@@ -352,6 +373,8 @@ file::file(const process_grid& grid, const std::string& path, mode m)
   if (m == mode::read)
     comm::together(grid.all(), [&] {
       struct stat st {};
+      if (fault::hit("open-input"))
+        throw error(error_kind::input, "cannot open " + path + ": injected fault");
       if (stat(path.c_str(), &st) != 0)
         throw error(error_kind::input, "cannot open " + path + ": " + std::strerror(errno));
       if (H5Fis_hdf5(path.c_str()) <= 0)
@@ -363,6 +386,7 @@ file::file(const process_grid& grid, const std::string& path, mode m)
         const handle alone(check(H5Fopen(path.c_str(), H5F_ACC_RDONLY, H5P_DEFAULT), damaged),
                            H5Fclose);
     });
+  if (m == mode::read) require_same_file(grid, path);
   comm::together(grid.all(), [&] {
     handle fapl(check(H5Pcreate(H5P_FILE_ACCESS), "H5Pcreate", error_kind::internal), H5Pclose);
     check(H5Pset_fapl_mpio(fapl.get(), grid.all().get(), MPI_INFO_NULL), "H5Pset_fapl_mpio",
@@ -397,6 +421,8 @@ file::~file() {
 }
 
 void file::close() {
+  if (fault::hit("close"))  // as if this rank failed inside the collective close
+    throw lone_failure(error_kind::output, "cannot finish writing " + path_ + ": injected fault");
   comm::together(grid_->all(), [&] {
     if (h_->file.release() < 0) {
       unclosed = true;
@@ -406,11 +432,17 @@ void file::close() {
 }
 
 bool file::has_dataset(const std::string& name) const {
-  return H5Lexists(h_->file.get(), name.c_str(), H5P_DEFAULT) > 0;
+  bool found = false;
+  comm::together(grid_->all(),
+                 [&] { found = H5Lexists(h_->file.get(), name.c_str(), H5P_DEFAULT) > 0; });
+  return found;
 }
 
 dataset_shape file::shape(const std::string& name) const {
-  return describe_dataset(open_dataset(h_->file.get(), name, path_).get());
+  dataset_shape s;
+  comm::together(grid_->all(),
+                 [&] { s = describe_dataset(open_dataset(h_->file.get(), name, path_).get()); });
+  return s;
 }
 
 namespace {

@@ -9,6 +9,7 @@
 #include <new>
 
 #include "comm/collectives.hpp"
+#include "comm/fault.hpp"
 #include "gridlu/generate.hpp"
 #include "instantiate.hpp"
 
@@ -23,6 +24,7 @@ constexpr std::size_t huge_page = std::size_t{2} << 20;
 }  // namespace
 
 void* allocate_storage(std::size_t bytes) {
+  if (fault::hit("allocate")) throw std::bad_alloc();
   if (bytes < huge_page) return ::operator new(bytes);
   const std::size_t rounded = (bytes + huge_page - 1) / huge_page * huge_page;
   void* p = std::aligned_alloc(huge_page, rounded);

@@ -802,7 +802,9 @@ solve_result run_checkpointed(const process_grid& grid, job& j, const run_settin
 // The job's X, if it is in place: a solution file tagged with the job's identity.
 bool solution_in_place(const process_grid& grid, const job& j) {
   std::int64_t present = 0;
-  if (grid.rank() == 0) present = std::filesystem::exists(j.output) ? 1 : 0;
+  comm::together(grid.all(), [&] {
+    if (grid.rank() == 0) present = std::filesystem::exists(j.output) ? 1 : 0;
+  });
   comm::broadcast(grid.all(), &present, 1, 0);
   if (!present) return false;
   try {
@@ -824,8 +826,10 @@ solve_result finish_again(const process_grid& grid, job j, const run_settings& r
     return r;
   }
   std::int64_t factors = 0;
-  if (grid.rank() == 0 && !j.save_factors.empty())
-    factors = std::filesystem::exists(j.save_factors) ? 1 : 0;
+  comm::together(grid.all(), [&] {
+    if (grid.rank() == 0 && !j.save_factors.empty())
+      factors = std::filesystem::exists(j.save_factors) ? 1 : 0;
+  });
   comm::broadcast(grid.all(), &factors, 1, 0);
   if (!factors)
     throw error(error_kind::input,
