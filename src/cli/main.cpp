@@ -62,6 +62,7 @@ struct common_options {
   int blas_threads = 1;
   std::string report;
   bool quiet = false, progress = false;
+  std::int64_t memory_per_rank = 0;  // solve and resume; the others keep it in their options
 };
 
 void add_common(CLI::App* cmd, common_options& o) {
@@ -70,6 +71,46 @@ void add_common(CLI::App* cmd, common_options& o) {
                   "BLAS threads per rank (default 1: one rank per core)")
       ->check(CLI::PositiveNumber);
   cmd->add_option("--report", o.report, "also write the figures as JSON to this file");
+}
+
+// --memory-per-rank SIZE, parsed into bytes.
+void add_memory_limit(CLI::App* cmd, std::int64_t& bytes) {
+  const CLI::Validator size(
+      [](std::string& text) {
+        try {
+          workflows::parse_size(text);
+          return std::string();
+        } catch (const gridlu::error& e) {
+          return std::string(e.what());
+        }
+      },
+      "SIZE");
+  cmd->add_option_function<std::string>(
+         "--memory-per-rank",
+         [&bytes](const std::string& text) { bytes = workflows::parse_size(text); },
+         "memory each rank may use, e.g. 512M, 2G, 1.5GiB or bytes (K, M, G: powers of 1024; kB, "
+         "MB, GB: of 1000); default: the node's available memory shared among its ranks, within "
+         "the control group's and the process's limits. A run that would need more is refused "
+         "before it starts (exit 6)")
+      ->check(size);
+}
+
+// A block size: a whole number of at least 1 (at most N is checked once N is known).
+const CLI::Validator positive_block(
+    [](std::string& text) {
+      const bool digits =
+          !text.empty() && text.find_first_not_of("0123456789") == std::string::npos;
+      if (digits && text.find_first_not_of('0') != std::string::npos) return std::string();
+      return "the block size must be a whole number of at least 1, not " + text;
+    },
+    "NB");
+
+// --block NB: a positive number, at most the order of the matrix.
+void add_block(CLI::App* cmd, index_t& block) {
+  cmd->add_option("--block", block,
+                  "block size nb, 1 to N, and its panels must fit in memory (default " +
+                      std::to_string(workflows::default_block) + ", or N if smaller)")
+      ->check(positive_block);
 }
 
 void add_lookahead(CLI::App* cmd, int& depth) {
@@ -157,6 +198,7 @@ workflows::run_settings run_settings_for(const process_grid& grid, const common_
   workflows::run_settings run;
   run.started = started;
   run.report = c.report;
+  run.memory_per_rank = c.memory_per_rank;
   const bool speaks = grid.rank() == 0 && !c.quiet;
   if (speaks && (c.progress || isatty(fileno(stderr)))) run.progress = progress_printer();
   if (grid.rank() == 0)
@@ -316,7 +358,7 @@ int run_read_bench(const common_options& c, const workflows::read_bench_options&
   if (grid.rank() != 0) return 0;
   std::printf("gridlu bench --read: %s:%s (%.2f GB) into a %dx%d grid, block %lld\n",
               o.path.c_str(), o.dataset.c_str(), r.bytes * 1e-9, grid.prows(), grid.pcols(),
-              static_cast<long long>(o.block));
+              static_cast<long long>(r.block));
   for (const double t : r.seconds)
     std::printf("  read %8.3f s   %6.2f GB/s\n", t, r.bytes / t * 1e-9);
   std::printf("  median %6.3f s   %6.2f GB/s\n", r.median, r.bytes / r.median * 1e-9);
@@ -337,7 +379,7 @@ void print_mixed_bench(const process_grid& grid, const workflows::bench_options&
       "gridlu bench: %s solve of a random %s system, n = %lld, one right-hand side, block %lld, "
       "grid %dx%d\n",
       o.precision.c_str(), o.type.c_str(), static_cast<long long>(o.n),
-      static_cast<long long>(o.block), grid.prows(), grid.pcols());
+      static_cast<long long>(r.block), grid.prows(), grid.pcols());
   std::printf(
       "  time to X     %10.3f s   (median of %zu: single-precision copy, factors, "
       "refinement)\n",
@@ -361,7 +403,7 @@ int run_bench(const common_options& c, const workflows::bench_options& o) {
   }
   std::printf(
       "gridlu bench: LU of a random %s matrix, n = %lld, block %lld, look-ahead %d, grid %dx%d\n",
-      o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(o.block), o.lookahead,
+      o.type.c_str(), static_cast<long long>(o.n), static_cast<long long>(r.block), o.lookahead,
       grid.prows(), grid.pcols());
   std::printf("  factor time   %10.3f s   (median of %zu)\n", r.factor_median,
               r.factor_seconds.size());
@@ -386,7 +428,7 @@ int run_demo(const common_options& c, const workflows::demo_options& o, std::int
   std::printf("gridlu demo: random %s system, n = %lld, %lld right-hand side(s)\n", o.type.c_str(),
               static_cast<long long>(o.n), static_cast<long long>(o.nrhs));
   std::printf("  grid %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(), grid.size(),
-              static_cast<long long>(o.block));
+              static_cast<long long>(r.block));
   std::printf("  generate  %9.3f s\n  factor    %9.3f s   %.2f GFLOP/s\n", r.generate_seconds,
               r.factor_seconds, r.gflops);
   std::printf("  solve     %9.3f s\n  check     %9.3f s\n", r.solve_seconds, r.check_seconds);
@@ -412,7 +454,7 @@ subcommand add_bench(CLI::App& app, double) {
       "bench",
       "time the LU of a generated matrix in memory against the GEMM rate of the same ranks");
   cmd->add_option("--n", o->n, "order of the matrix")->capture_default_str();
-  cmd->add_option("--block", o->block, "block size nb")->capture_default_str();
+  add_block(cmd, o->block);
   add_lookahead(cmd, o->lookahead);
   cmd->add_option("--type", o->type, "float32, float64, complex64 or complex128")
       ->capture_default_str();
@@ -420,6 +462,7 @@ subcommand add_bench(CLI::App& app, double) {
   cmd->add_option("--repeat", o->repeat, "factorizations to time (median is reported)")
       ->capture_default_str();
   add_precision(cmd, o->precision, "double");
+  add_memory_limit(cmd, o->memory_per_rank);
   cmd->add_option("--read", read->path,
                   "instead: time reading a dataset of this HDF5 file into the grid");
   cmd->add_option("--dataset", read->dataset, "with --read: the dataset")->capture_default_str();
@@ -433,6 +476,7 @@ subcommand add_bench(CLI::App& app, double) {
             if (read->path.empty()) return run_bench(*c, *o);
             read->block = o->block;
             read->repeat = o->repeat;
+            read->memory_per_rank = o->memory_per_rank;
             return run_read_bench(*c, *read);
           }};
 }
@@ -444,12 +488,13 @@ subcommand add_demo(CLI::App& app, double) {
       app.add_subcommand("demo", "solve a generated random system and report its backward error");
   cmd->add_option("--n", o->n, "number of unknowns")->capture_default_str();
   cmd->add_option("--rhs", o->nrhs, "number of right-hand sides")->capture_default_str();
-  cmd->add_option("--block", o->block, "block size nb")->capture_default_str();
+  add_block(cmd, o->block);
   add_lookahead(cmd, o->lookahead);
   cmd->add_option("--type", o->type, "float32, float64, complex64 or complex128")
       ->capture_default_str();
   cmd->add_option("--seed", o->seed, "seed of the generated system")->capture_default_str();
   add_precision(cmd, o->precision, "double");
+  add_memory_limit(cmd, o->memory_per_rank);
   auto digits = std::make_shared<std::int64_t>(0);
   add_require_digits(cmd, *digits);
   add_common(cmd, *c);
@@ -468,7 +513,7 @@ subcommand add_solve(CLI::App& app, double started) {
       ->capture_default_str();
   cmd->add_option("--rhs-dataset", o->rhs_dataset, "name of B")->capture_default_str();
   cmd->add_option("--rhs-file", o->rhs_file, "read B from this file instead of INPUT");
-  cmd->add_option("--block", o->block, "block size nb")->capture_default_str();
+  add_block(cmd, o->block);
   add_lookahead(cmd, o->lookahead);
   cmd->add_flag("--column-major", o->column_major,
                 "A's dataset holds the transpose (element [i][j] is A(j, i)), as column-major "
@@ -482,6 +527,7 @@ subcommand add_solve(CLI::App& app, double started) {
   cmd->add_flag("--refine", o->refine,
                 "refine X iteratively in the working precision (keeps a second copy of A)");
   add_precision(cmd, o->precision, "double");
+  add_memory_limit(cmd, c->memory_per_rank);
   add_require_digits(cmd, o->require_digits);
   cmd->add_option("--save-factors", o->save_factors, "also write the LU factors to this file");
   cmd->add_option("--factors", o->factors, "solve with factors saved earlier instead of factoring");
@@ -531,7 +577,8 @@ subcommand add_resume(CLI::App& app, double started) {
       "resume", "continue (or finish) a checkpointed solve, on any number of ranks");
   cmd->add_option("dir", o->dir, "the solve's checkpoint directory")->required();
   cmd->add_option("--block", o->block,
-                  "block size nb (default: the one the job was started with; any works)");
+                  "block size nb, 1 to N (default: the one the job was started with; any works)")
+      ->check(positive_block);
   cmd->add_option("--lookahead", o->lookahead,
                   "panels factored ahead of the trailing update (default: the job's)")
       ->check(CLI::NonNegativeNumber);
@@ -542,6 +589,7 @@ subcommand add_resume(CLI::App& app, double started) {
   cmd->add_option("--stop-after", *stop_after, "time budget in minutes")
       ->check(CLI::NonNegativeNumber);
   add_precision(cmd, o->precision, "the job's");
+  add_memory_limit(cmd, c->memory_per_rank);
   add_require_digits(cmd, o->require_digits);
   add_verbosity(cmd, *c);
   add_common(cmd, *c);
@@ -569,6 +617,7 @@ CLI::App* add_generate_kind(CLI::App* generate, const std::string& name, const s
   cmd->add_option("--type", o.type, "float32, float64, complex64 or complex128")
       ->capture_default_str();
   cmd->add_flag("--force", o.force, "replace the file if it exists");
+  add_memory_limit(cmd, o.memory_per_rank);
   add_common(cmd, c);
   return cmd;
 }

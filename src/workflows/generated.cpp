@@ -18,9 +18,15 @@
 namespace gridlu::workflows {
 namespace {
 
-void check_sizes(index_t n, index_t block) {
+void require_order(index_t n) {
   if (n < 1) throw error(error_kind::usage, "the order N must be at least 1");
-  require_block(block);
+}
+
+// What the one-line refusal names: "a float64 system of order 3000 (gridlu demo, grid 1x2)".
+std::string described(const std::string& thing, const std::string& type, index_t n,
+                      const process_grid& grid, const std::string& command) {
+  return "a " + type + " " + thing + " of order " + std::to_string(n) + " (gridlu " + command +
+         ", grid " + std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols()) + ")";
 }
 
 // Every rank multiplies square matrices at once: the rate the same cores reach on the
@@ -133,6 +139,10 @@ void bench_mixed(const process_grid& grid, const bench_options& o, bench_result&
 template <scalar T>
 bench_result bench_typed(const process_grid& grid, const bench_options& o) {
   bench_result r;
+  r.block = o.block;
+  auto model = solve_model(grid, o.n, 1, o.block, sizeof(T), o.lookahead, o.precision, false);
+  model.gemm_order = std::min<index_t>(o.n, 2048);
+  require_memory(grid, model, o.memory_per_rank, described("matrix", o.type, o.n, grid, "bench"));
   // GEMM first: its operands are freed before the matrix exists, so they do not add to
   // the peak memory of the run.
   r.gemm_order = std::min<index_t>(o.n, 2048);
@@ -171,6 +181,10 @@ bool demo_mixed(const process_grid& grid, const demo_options& o, const dist_matr
 template <scalar T>
 demo_result demo_typed(const process_grid& grid, const demo_options& o) {
   demo_result r;
+  r.block = o.block;
+  require_memory(
+      grid, solve_model(grid, o.n, o.nrhs, o.block, sizeof(T), o.lookahead, o.precision, false),
+      o.memory_per_rank, described("system", o.type, o.n, grid, "demo"));
   const auto a_entry = [&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); };
   const auto b_entry = [&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); };
   dist_matrix<T> a(grid, o.n, o.n, o.block), b(grid, o.n, o.nrhs, o.block),
@@ -260,15 +274,17 @@ std::vector<std::pair<const char*, io::attribute>> system_attributes(const gener
 
 }  // namespace
 
-bench_result bench(const process_grid& grid, const bench_options& o) {
-  check_sizes(o.n, o.block);
+bench_result bench(const process_grid& grid, const bench_options& asked) {
+  require_order(asked.n);
+  bench_options o = asked;
+  o.block = block_for(asked.block, asked.n, default_block);
   require_precision(o.precision, o.type);
   if (o.repeat < 1) throw error(error_kind::usage, "--repeat must be at least 1");
   return by_type<bench_result>(o.type, [&]<class T>(T) { return bench_typed<T>(grid, o); });
 }
 
 read_bench_result bench_read(const process_grid& grid, const read_bench_options& o) {
-  require_block(o.block);
+  if (o.block < 0) block_for(o.block, 1, default_block);  // refused whatever the file
   const io::file f(grid, o.path, io::file::mode::read);
   const auto shape = f.shape(o.dataset);
   if (shape.dims.size() != 2 || !shape.usable)
@@ -277,8 +293,16 @@ read_bench_result bench_read(const process_grid& grid, const read_bench_options&
   const index_t rows = o.column_major ? shape.dims[1] : shape.dims[0];
   const index_t cols = o.column_major ? shape.dims[0] : shape.dims[1];
   read_bench_result r;
+  r.block = block_for(o.block, std::max(rows, cols), default_block);
   dispatch_scalar(shape.type, [&]<class T>(T) {
-    dist_matrix<T> m(grid, rows, cols, o.block);
+    memory_model model;
+    model.n = std::max(rows, cols);  // a square matrix of the larger dimension bounds it
+    model.block = r.block;
+    model.grid = grid.shape();
+    model.element_bytes = sizeof(T);
+    require_memory(grid, model, o.memory_per_rank,
+                   o.dataset + " in " + o.path + " (gridlu bench --read)");
+    dist_matrix<T> m(grid, rows, cols, r.block);
     for (int rep = 0; rep < o.repeat; ++rep)
       r.seconds.push_back(timed(grid, [&] { f.read(o.dataset, m, o.column_major); }));
     r.bytes = static_cast<double>(rows) * static_cast<double>(cols) * sizeof(T);
@@ -287,8 +311,10 @@ read_bench_result bench_read(const process_grid& grid, const read_bench_options&
   return r;
 }
 
-demo_result demo(const process_grid& grid, const demo_options& o) {
-  check_sizes(o.n, o.block);
+demo_result demo(const process_grid& grid, const demo_options& asked) {
+  require_order(asked.n);
+  demo_options o = asked;
+  o.block = block_for(asked.block, asked.n, default_block);
   require_precision(o.precision, o.type);
   if (o.nrhs < 1)
     throw error(error_kind::usage, "the number of right-hand sides must be at least 1");
@@ -303,7 +329,12 @@ void generate_file(const process_grid& grid, const generate_options& o) {
     if (grid.rank() == 0) io::check_output_target(o.output, policy);
   });
   with_type(o.type, [&]<class T>(T) {
-    dist_matrix<T> a(grid, o.n, o.n, default_block), b(grid, o.n, o.nrhs, default_block);
+    const index_t block = std::min(default_block, o.n);
+    auto model = solve_model(grid, o.n, o.nrhs, block, sizeof(T), -1, "double", false, false);
+    model.vectors = 1;  // B alone: A and B are filled and written
+    require_memory(grid, model, o.memory_per_rank,
+                   described("system", o.type, o.n, grid, "generate"));
+    dist_matrix<T> a(grid, o.n, o.n, block), b(grid, o.n, o.nrhs, block);
     fill_system(o, a, b);
     io::staged_output out(grid, o.output, policy, a.bytes() + b.bytes());
     {

@@ -101,7 +101,7 @@ nlohmann::json solve_result::json() const {
 nlohmann::json bench_result::json(const bench_options& o) const {
   nlohmann::json j = {{"command", "bench"},
                       {"n", o.n},
-                      {"block", o.block},
+                      {"block", block},
                       {"lookahead", o.lookahead},
                       {"type", o.type},
                       {"times",
@@ -128,7 +128,7 @@ nlohmann::json read_bench_result::json(const read_bench_options& o) const {
           {"file", o.path},
           {"dataset", o.dataset},
           {"bytes", bytes},
-          {"block", o.block},
+          {"block", block},
           {"times", {{"read", median}, {"read_runs", seconds}}},
           {"gbytes_per_second", bytes / median * 1e-9}};
 }
@@ -137,7 +137,7 @@ nlohmann::json demo_result::json(const demo_options& o) const {
   nlohmann::json j = {{"command", "demo"},
                       {"n", o.n},
                       {"nrhs", o.nrhs},
-                      {"block", o.block},
+                      {"block", block},
                       {"type", o.type},
                       {"times",
                        {{"generate", generate_seconds},

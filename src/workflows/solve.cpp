@@ -3,7 +3,6 @@
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
-#include <fstream>
 #include <optional>
 #include <utility>
 
@@ -51,7 +50,7 @@ std::int64_t integer_attribute(const io::file& f, const std::string& key) {
 // Before any work: options, and outputs against inputs.
 
 void check_options(const solve_options& o) {
-  require_block(o.block);
+  if (o.block < 0) throw error(error_kind::usage, "the block size must be at least 1");
   if (!o.factors.empty() && !o.save_factors.empty())
     throw error(error_kind::usage, "--factors and --save-factors do not go together");
   if (!o.factors.empty() && !o.checkpoint_dir.empty())
@@ -667,50 +666,20 @@ private:
   solve_result r_;
 };
 
-// Bytes this process may still take: what the kernel reports available, within the
-// control group's limit where one is set.
-double available_memory() {
-  double available = 0;
-  std::ifstream meminfo("/proc/meminfo");
-  for (std::string key; meminfo >> key;) {
-    double kb = 0;
-    meminfo >> kb;
-    if (key == "MemAvailable:") available = kb * 1024;
-    meminfo.ignore(64, '\n');
-  }
-  std::ifstream max("/sys/fs/cgroup/memory.max"), current("/sys/fs/cgroup/memory.current");
-  double limit = 0, used = 0;
-  if (max >> limit && current >> used) available = std::min(available, limit - used);
-  return available;
-}
-
-// Refuses, on every rank together, a job whose matrices cannot fit: a size read from a
-// file must end in a clear word, not in an allocation failure half-way.
-void require_memory(const process_grid& grid, const job& j) {
-  const int sharing = comm::ranks_on_node(grid.all());
-  const double n = static_cast<double>(j.n), entry = element_bytes(j.type);
-  // A (twice to refine: the factors and the matrix; 1.5 times for mixed precision: A and
-  // its single-precision factors), B and X shared out, and per rank the panels in flight
-  // and the I/O slabs.
-  const double copies = is_mixed(j.precision) ? 1.5 : j.refine ? 2 : 1;
-  const double need =
-      entry * ((copies * n * n + 3.0 * n * static_cast<double>(j.nrhs)) / grid.size() +
-               static_cast<double>(j.lookahead + 4) * n * static_cast<double>(j.block));
-  comm::together(grid.all(), [&] {
-    const double share = available_memory() / sharing;
-    if (need > share)
-      throw error(error_kind::output,
-                  "not enough memory for a " + j.type + " system of order " + std::to_string(j.n) +
-                      ": about " + std::to_string(std::llround(need / 1e6)) +
-                      " MB per rank needed, " + std::to_string(std::llround(share / 1e6)) +
-                      " MB available to each of the " + std::to_string(sharing) +
-                      " rank(s) on this node");
-  });
+// A run's peak memory: the job's system on this grid, factored unless its factors are
+// read; checked on every rank before A is allocated.
+void require_job_memory(const process_grid& grid, const job& j, const run_settings& run) {
+  const auto bytes = static_cast<std::int64_t>(element_bytes(j.type));
+  const auto model = solve_model(grid, j.n, j.nrhs, j.block, bytes, static_cast<int>(j.lookahead),
+                                 j.precision, j.refine, j.factors.empty());
+  require_memory(grid, model, run.memory_per_rank,
+                 "a " + j.type + " system of order " + std::to_string(j.n) + " (grid " +
+                     std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols()) + ")");
 }
 
 solve_result run_job(const process_grid& grid, job& j, const run_settings& run, const inputs& in,
                      checkpointing* ck) {
-  require_memory(grid, j);
+  require_job_memory(grid, j, run);
   solve_result result;
   dispatch_scalar(j.type, [&]<class T>(T) { result = job_run<T>(grid, j, run, in, ck)(); });
   return result;
@@ -789,6 +758,7 @@ solve_result run_checkpointed(const process_grid& grid, job& j, const run_settin
   if (resumed) ++ck.done.restarts;
   const job recorded = j;
   const inputs in = open_inputs(grid, j);
+  if (!resumed) j.block = block_for(j.block, j.n, default_block);
   if (resumed && (j.n != recorded.n || j.type != recorded.type))
     throw error(error_kind::input, j.matrix_dataset + " in " + j.input +
                                        " is no longer the matrix of the job in " + dir.path());
@@ -897,6 +867,7 @@ solve_result solve_file(const process_grid& grid, const solve_options& o, const 
   const stop_requests stops;
   if (j.checkpoint_dir.empty()) {
     const inputs in = open_inputs(grid, j);
+    j.block = block_for(j.block, j.n, default_block);
     return run_job(grid, j, run, in, nullptr);
   }
   const checkpoint::directory dir(grid, j.checkpoint_dir, checkpoint::directory::opening::create);
@@ -906,11 +877,11 @@ solve_result solve_file(const process_grid& grid, const solve_options& o, const 
 
 solve_result resume_dir(const process_grid& grid, const resume_options& ro,
                         const run_settings& run) {
-  if (ro.block != 0) require_block(ro.block);  // 0: the job's own
+  if (ro.block < 0) throw error(error_kind::usage, "the block size must be at least 1");
   const stop_requests stops;
   const checkpoint::directory dir(grid, absolute(ro.dir), checkpoint::directory::opening::existing);
   job j = recorded_job(dir);
-  if (ro.block > 0) j.block = ro.block;
+  if (ro.block > 0) j.block = block_for(ro.block, j.n, default_block);
   if (ro.lookahead >= 0) j.lookahead = ro.lookahead;
   if (!ro.output.empty()) j.output = absolute(ro.output);
   if (ro.checkpoint_every >= 0) j.checkpoint_every = ro.checkpoint_every;

@@ -14,6 +14,7 @@
 #include "gridlu/lu.hpp"
 #include "gridlu/mixed.hpp"
 #include "workflows/job.hpp"
+#include "workflows/memory.hpp"
 
 namespace gridlu::workflows {
 
@@ -23,10 +24,6 @@ inline constexpr index_t default_block = 224;
 // Default look-ahead depth: one panel ahead hides the panel and its broadcast; deeper
 // only adds memory here (see DEVELOPERS.md).
 inline constexpr int default_lookahead = 1;
-
-inline void require_block(index_t block) {
-  if (block < 1) throw error(error_kind::usage, "the block size must be at least 1");
-}
 
 // "double", "mixed" or "mixed-krylov": a usage error otherwise, or when mixed precision
 // meets a type it cannot refine (float32 and complex64 have no narrower type; an empty
@@ -49,15 +46,17 @@ nlohmann::json precision_json(const precision_outcome& p,
 
 struct bench_options {
   index_t n = 4096;
-  index_t block = default_block;
+  index_t block = 0;  // 0: default_block, or n if smaller (block_for)
   int lookahead = default_lookahead;
   std::string type = "float64";
   std::uint64_t seed = 1;
   int repeat = 1;
   std::string precision = "double";  // mixed kinds: time to a refined X, against double's
+  std::int64_t memory_per_rank = 0;  // bytes a rank may use; 0: what the system allows
 };
 
 struct bench_result {
+  index_t block = 0;                   // the block size used
   std::vector<double> factor_seconds;  // one per repetition
   double factor_median = 0;
   double gflops = 0;       // factorization, from the median time
@@ -80,12 +79,14 @@ bench_result bench(const process_grid& grid, const bench_options& options);
 
 struct read_bench_options {
   std::string path, dataset = "A";
-  index_t block = default_block;
+  index_t block = 0;  // 0: default_block, or the larger dimension if smaller
   bool column_major = false;
   int repeat = 3;
+  std::int64_t memory_per_rank = 0;
 };
 
 struct read_bench_result {
+  index_t block = 0;            // the block size used
   std::vector<double> seconds;  // one per repetition
   double median = 0;
   double bytes = 0;  // size of the dataset in memory
@@ -98,14 +99,16 @@ read_bench_result bench_read(const process_grid& grid, const read_bench_options&
 struct demo_options {
   index_t n = 3000;
   index_t nrhs = 4;
-  index_t block = default_block;
+  index_t block = 0;  // 0: default_block, or n if smaller
   int lookahead = default_lookahead;
   std::string type = "float64";
   std::uint64_t seed = 1;
   std::string precision = "double";
+  std::int64_t memory_per_rank = 0;
 };
 
 struct demo_result {
+  index_t block = 0;  // the block size used
   // With mixed precision, factor_seconds is the single-precision factorization (and the
   // double one after a fallback) and solve_seconds the refinement.
   double generate_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0;
@@ -128,7 +131,7 @@ using notice_callback = std::function<void(const std::string&)>;
 struct solve_options {
   std::string input, output;
   std::string matrix_dataset = "A", rhs_dataset = "B", rhs_file;  // rhs_file empty: input
-  index_t block = default_block;
+  index_t block = 0;  // 0: default_block, or n if smaller
   int lookahead = default_lookahead;
   bool column_major = false;          // the file holds the transpose of A
   std::string solve_with = "A";       // "A", "A^T" or "A^H": the system's matrix
@@ -146,9 +149,10 @@ struct solve_options {
 
 // What a run of a solve job must know beyond the job itself.
 struct run_settings {
-  double started = 0;     // comm::wtime() when the program started
-  double stop_after = 0;  // seconds; 0: no budget
-  std::string report;     // this run's report file, or empty
+  double started = 0;                // comm::wtime() when the program started
+  double stop_after = 0;             // seconds; 0: no budget
+  std::string report;                // this run's report file, or empty
+  std::int64_t memory_per_rank = 0;  // bytes a rank may use; 0: what the system allows
   progress_callback progress;
   notice_callback notice;
 };
@@ -186,7 +190,7 @@ solve_result solve_file(const process_grid& grid, const solve_options& options,
 
 struct resume_options {
   std::string dir;
-  index_t block = 0;                 // 0: the job's own
+  index_t block = 0;                 // 0: the job's own; else 1..n
   int lookahead = -1;                // negative: the job's own
   std::string output;                // empty: the job's own
   bool force = false;                // replace existing outputs even if the job did not ask to
@@ -207,6 +211,7 @@ struct generate_options {
   std::uint64_t seed = 1;
   std::string output;
   bool force = false;
+  std::int64_t memory_per_rank = 0;  // bytes a rank may use; 0: what the system allows
 };
 
 // Writes a generated system to an HDF5 file, in parallel: random A and B, or a classical
