@@ -247,15 +247,15 @@ with suite.case("non-finite X (pivot 1e-300, b = 1e10): exit 4 naming X[0, 1], n
         x1 = b[0] - x2 - x3
     c.require(np.isfinite(x1[0]) and not np.isfinite(x1[1]) and not np.isfinite(x3[1]),
               "the hand-made solution is not as intended")
-    refused_nonfinite(c, a, b, "X[0, 1]", [(1, "1x1", 224), (2, "1x2", 1)])
+    refused_nonfinite(c, a, b, "X[0, 1]", [(1, "1x1", 3), (2, "1x2", 1)])
 
-with suite.case("non-finite X, 1-D B: named X[0], 1 rank and 2 ranks (2x1, block 1)") as c:
+with suite.case("non-finite X, 1-D B: named X[0], 1 rank (block 3) and 2 ranks (2x1, block 1)") as c:
     a = np.array([[1, 1, 1], [0, 1, 1], [0, 0, 1e-300]])
     b = np.array([0, 0, 1e10])
     # x = (NaN, -inf, inf) as above. Back substitution multiplies every entry of U above the
     # diagonal, zeros too, and 0 x inf is NaN (IEEE 754): a non-finite x_j spoils x_0 .. x_j-1,
     # so the first bad entry of a 1-D X is X[0] whichever entry overflows.
-    refused_nonfinite(c, a, b, "X[0]", [(1, "1x1", 224), (2, "2x1", 1)])
+    refused_nonfinite(c, a, b, "X[0]", [(1, "1x1", 3), (2, "2x1", 1)])
 
 def overflowing_system(n):
     """A float32 system whose X does not fit in float32: singular values of A in

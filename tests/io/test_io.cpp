@@ -69,6 +69,17 @@ index_t gathered_mismatches(const std::vector<T>& whole, index_t m, index_t n, F
   return bad;
 }
 
+// Both views of m against f: every rank's local entries, and the gathered matrix on the
+// root (which also checks the gather).
+template <class T, class F>
+void expect_entries(const dist_matrix<T>& m, F&& f) {
+  EXPECT_EQ(local_mismatches(m, f), 0);
+  const auto whole = m.gather();
+  if (is_root()) {
+    EXPECT_EQ(gathered_mismatches(whole, m.rows(), m.cols(), f), 0);
+  }
+}
+
 // The checksum rank 0 computes alone, on a 1 x 1 grid of MPI_COMM_SELF, of the matrix
 // f fills (block size 1: no other rank, no other block size shares any of its work);
 // every rank gets it.
@@ -129,11 +140,7 @@ TYPED_TEST(Io, WriteThenReadIsExactOnEveryGridAndBlockSize) {
       dist_matrix<T> b(grid, m, n, nb);
       b.fill([](index_t, index_t) { return T(7); });  // nothing of it may survive the read
       f.read("a", b);
-      EXPECT_EQ(local_mismatches(b, entry), 0);
-      const auto whole = b.gather();
-      if (is_root()) {
-        EXPECT_EQ(gathered_mismatches(whole, m, n, entry), 0);
-      }
+      expect_entries(b, entry);
     }
   }
 }
@@ -199,11 +206,7 @@ TYPED_TEST(Io, TransposedReadOfTheTransposeGivesTheMatrix) {
       EXPECT_EQ(f.shape("t").dims, (std::vector<index_t>{n, m}));
       dist_matrix<T> a(grid, m, n, nb == 5 ? 8 : 5);
       f.read("t", a, true);
-      EXPECT_EQ(local_mismatches(a, entry), 0);
-      const auto whole = a.gather();
-      if (is_root()) {
-        EXPECT_EQ(gathered_mismatches(whole, m, n, entry), 0);
-      }
+      expect_entries(a, entry);
       // The checksum of the transposed reading is the matrix's, not the file's layout's.
       const std::uint64_t of_matrix = checksum_by_definition<T>(m, n, entry);
       EXPECT_EQ(f.checksum<T>("t", true), of_matrix);
@@ -411,11 +414,7 @@ TYPED_TEST(Io, SplitTransfersGiveTheSameMatrixAndChecksums) {
         const io::file f(grid, split, io::file::mode::read);
         dist_matrix<T> c(grid, m, n, 3);
         f.read("a", c);  // at the default limit
-        EXPECT_EQ(local_mismatches(c, entry), 0);
-        const auto gathered = c.gather();
-        if (is_root()) {
-          EXPECT_EQ(gathered_mismatches(gathered, m, n, entry), 0);
-        }
+        expect_entries(c, entry);
       }
   }
 }
