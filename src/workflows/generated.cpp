@@ -296,7 +296,8 @@ read_bench_result bench_read(const process_grid& grid, const read_bench_options&
   r.block = block_for(o.block, std::max(rows, cols), default_block);
   dispatch_scalar(shape.type, [&]<class T>(T) {
     memory_model model;
-    model.n = std::max(rows, cols);  // a square matrix of the larger dimension bounds it
+    model.n = rows;
+    model.cols = cols;
     model.block = r.block;
     model.grid = grid.shape();
     model.element_bytes = sizeof(T);

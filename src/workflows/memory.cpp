@@ -166,7 +166,8 @@ double memory_need::total() const { return std::max(gemm, matrices + panels + io
 
 memory_need need_per_rank(const memory_model& m) {
   const index_t b = std::min(m.block, m.n);
-  const cyclic_map rows(m.n, b, m.grid.p), cols(m.n, b, m.grid.q), rhs(m.nrhs, b, m.grid.q);
+  const index_t a_cols = m.cols > 0 ? m.cols : m.n;
+  const cyclic_map rows(m.n, b, m.grid.p), cols(a_cols, b, m.grid.q), rhs(m.nrhs, b, m.grid.q);
   // Process row and column 0 hold the most rows and columns: rank 0 has the largest share.
   const double e = static_cast<double>(m.element_bytes);
   const double mr = static_cast<double>(rows.local_extent(0));
@@ -183,7 +184,7 @@ memory_need need_per_rank(const memory_model& m) {
     need.panels = e * (in_flight * (mr + b) * b + 2 * u_rows + interchange);
   }
   need.io = static_cast<double>(
-      io::io_buffer_bytes(m.n, m.n, b, m.grid, m.element_bytes, comm::transfer_limit()));
+      io::io_buffer_bytes(m.n, a_cols, b, m.grid, m.element_bytes, comm::transfer_limit()));
   need.gemm = 3 * e * static_cast<double>(m.gemm_order) * static_cast<double>(m.gemm_order);
   return need;
 }

@@ -17,6 +17,7 @@ index_t block_for(index_t asked, index_t n, index_t fallback);
 // The peak of a command, described by what it holds at once.
 struct memory_model {
   index_t n = 1, nrhs = 1, block = 1;
+  index_t cols = 0;  // A's columns where A is not square (bench --read); 0: n
   grid_shape grid;
   std::int64_t element_bytes = 8;
   double matrix_copies = 1;  // of A: 2 with --refine, 1.5 with mixed precision
