@@ -40,6 +40,15 @@ void write_file(const process_grid& grid, const std::string& path, const std::st
   f.close();
 }
 
+// The real m x n dataset "r" at `path`, entries random_entry<R>(seed, i, j).
+template <class R>
+void write_real_file(const process_grid& grid, const std::string& path, index_t m, index_t n,
+                     index_t nb, std::uint64_t seed) {
+  dist_matrix<R> r(grid, m, n, nb);
+  r.fill([&](index_t i, index_t j) { return random_entry<R>(seed, i, j); });
+  write_file(grid, path, "r", r);
+}
+
 std::string label(grid_shape s, index_t m, index_t n, index_t nb) {
   return "grid " + std::to_string(s.p) + "x" + std::to_string(s.q) + " " + std::to_string(m) + "x" +
          std::to_string(n) + " nb=" + std::to_string(nb);
@@ -257,11 +266,7 @@ TYPED_TEST(IoComplex, RealDatasetReadIntoComplexHasZeroImaginaryParts) {
       const auto real_entry = [&](index_t i, index_t j) { return random_entry<R>(17 + n, i, j); };
       const auto promoted = [&](index_t i, index_t j) { return T(real_entry(i, j), R(0)); };
       const std::string path = dir.file("real.h5");
-      {
-        dist_matrix<R> r(grid, m, n, nb);
-        r.fill(real_entry);
-        write_file(grid, path, "r", r);
-      }
+      write_real_file<R>(grid, path, m, n, nb, 17 + n);
       const io::file f(grid, path, io::file::mode::read);
       EXPECT_FALSE(f.shape("r").is_complex);
       dist_matrix<T> c(grid, m, n, nb);
@@ -430,14 +435,11 @@ TYPED_TEST(IoComplex, SplitWideningKeepsTheValues) {
     for (const auto [m, n, nb] : split_cases)
       for (const std::int64_t limit : split_limits) {
         SCOPED_TRACE(label(shape, m, n, nb) + " limit " + std::to_string(limit));
-        const auto real_entry = [&](index_t i, index_t j) { return random_entry<R>(m + n, i, j); };
-        const auto promoted = [&](index_t i, index_t j) { return T(real_entry(i, j), R(0)); };
+        const auto promoted = [&](index_t i, index_t j) {
+          return T(random_entry<R>(m + n, i, j), R(0));
+        };
         const std::string path = dir.file("real.h5");
-        {
-          dist_matrix<R> r(grid, m, n, nb);
-          r.fill(real_entry);
-          write_file(grid, path, "r", r);
-        }
+        write_real_file<R>(grid, path, m, n, nb, m + n);
         const io::file f(grid, path, io::file::mode::read);
         const limit_scope low(limit);
         dist_matrix<T> c(grid, m, n, nb);
