@@ -11,6 +11,7 @@ import re
 import signal
 import subprocess
 import sys
+import time
 import tempfile
 import traceback
 from contextlib import contextmanager
@@ -93,17 +94,30 @@ class Suite:
         mpiexec's own banners off stderr, so what is there comes from gridlu."""
         argv = [self.mpiexec, "-q", "-n", str(ranks), "--oversubscribe", self.gridlu,
                 *map(str, args)]
+        return self.launch(argv, timeout=timeout, env=env)
+
+    def launch(self, argv, cwd=None, timeout=TIMEOUT_SECONDS, env=None):
+        """Any launch line (an MPMD one too); Run.seconds is how long it took."""
+        started = time.monotonic()
         # A session of its own, so that a hung run can be killed with all its ranks.
         proc = subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                                start_new_session=True, cwd=self.root,
+                                start_new_session=True, cwd=cwd or self.root,
                                 env={**os.environ, **(env or {})})
         try:
             out, err = proc.communicate(timeout=timeout)
-            return Run(argv, proc.returncode, out, err, hung=False)
+            run = Run(argv, proc.returncode, out, err, hung=False)
         except subprocess.TimeoutExpired:
             os.killpg(proc.pid, signal.SIGKILL)
             out, err = proc.communicate()
-            return Run(argv, proc.returncode, out, err, hung=True)
+            run = Run(argv, proc.returncode, out, err, hung=True)
+        run.seconds = time.monotonic() - started
+        return run
+
+    def sanitized(self):
+        """True when gridlu is built with AddressSanitizer, which reserves terabytes of
+        address space: no ulimit -v can hold it."""
+        libs = subprocess.run(["ldd", self.gridlu], capture_output=True, text=True).stdout
+        return "asan" in libs
 
     @contextmanager
     def case(self, name):

@@ -10,17 +10,14 @@ collective for ever. Expected values come from the command's documented exit cod
 
 import hashlib
 import os
-import signal
-import subprocess
 import sys
-import time
 from pathlib import Path
 
 import h5py
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from harness import Run, Suite, random_matrix  # noqa: E402
+from harness import Suite, random_matrix  # noqa: E402
 
 suite = Suite(__doc__)
 
@@ -36,18 +33,7 @@ def launch(parts, env=None):
     argv = [suite.mpiexec, "-q", "--oversubscribe"]
     for k, (wdir, command) in enumerate(parts):
         argv += ([":"] if k else []) + ["-n", "1", "--wdir", str(wdir), *map(str, command)]
-    started = time.monotonic()
-    proc = subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                            start_new_session=True, env={**os.environ, **(env or {})})
-    try:
-        out, err = proc.communicate(timeout=LIMIT)
-        run = Run(argv, proc.returncode, out, err, hung=False)
-    except subprocess.TimeoutExpired:
-        os.killpg(proc.pid, signal.SIGKILL)
-        out, err = proc.communicate()
-        run = Run(argv, proc.returncode, out, err, hung=True)
-    run.seconds = time.monotonic() - started
-    return run
+    return suite.launch(argv, timeout=LIMIT, env=env)
 
 
 def both(wdir, *args):
@@ -95,14 +81,9 @@ with suite.case("a file the ranks see differently") as c:
     ended(c, run, INPUT, r"on rank 1 is not the file rank 0 reads")
     no_output(c, first / "x.h5")
 
-def sanitized(program):
-    """AddressSanitizer reserves terabytes of address space: no ulimit -v can hold it."""
-    return "asan" in subprocess.run(["ldd", program], capture_output=True, text=True).stdout
-
-
 # Under AddressSanitizer rank 1 runs without the address-space limit; the injected
 # allocation failure is the same.
-LIMIT_V = [] if sanitized(suite.gridlu) else ["ulimit -v 4000000"]
+LIMIT_V = [] if suite.sanitized() else ["ulimit -v 4000000"]
 with suite.case(f"out of memory on one rank ({', '.join(LIMIT_V + ['allocate@1'])})") as c:
     write_system(c.dir / "in.h5")
     # The limit leaves room to start (the up-front check of RLIMIT_AS passes); the
