@@ -77,6 +77,20 @@ public:
     }
   }
 
+  // One block of this rank's part: the global indices of its first entry, its extent,
+  // and its storage (column-major, leading dimension ld).
+  template <class E>
+  struct block_view {
+    index_t row, col, rows, cols;
+    E* data;
+    index_t ld;
+  };
+  // The count of this rank's blocks, and the b-th of them (0 <= b < local_blocks()),
+  // column of blocks by column of blocks: how an assembly code fills its own blocks.
+  index_t local_blocks() const { return row_blocks() * col_blocks(); }
+  block_view<T> local_block(index_t b) { return view<T>(*this, b); }
+  block_view<const T> local_block(index_t b) const { return view<const T>(*this, b); }
+
   // Whole matrix, column-major m x n, on rank `root` of the grid (empty elsewhere).
   // For tests and small problems only: it holds everything on one rank.
   std::vector<T> gather(int root = 0) const;
@@ -84,6 +98,18 @@ public:
   void scatter(const std::vector<T>& whole, int root = 0);
 
 private:
+  index_t row_blocks() const { return (local_rows_ + block() - 1) / block(); }
+  index_t col_blocks() const { return (local_cols_ + block() - 1) / block(); }
+  template <class E, class M>
+  static block_view<E> view(M& m, index_t b) {
+    const index_t nb = m.block(), li = (b % m.row_blocks()) * nb, lj = (b / m.row_blocks()) * nb;
+    return {m.layout_.rows.global(m.grid_->myrow(), li),
+            m.layout_.cols.global(m.grid_->mycol(), lj),
+            std::min(nb, m.local_rows_ - li),
+            std::min(nb, m.local_cols_ - lj),
+            m.at(li, lj),
+            m.ld_};
+  }
   index_t offset(index_t li, index_t lj) const {
     return std::min(li + lj * ld_, static_cast<index_t>(storage_.size()));
   }

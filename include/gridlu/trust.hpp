@@ -31,7 +31,10 @@ struct solution_figures {
 // precision and at every order n (README, "How far to trust X").
 struct trust_rules {
   double backward_error_limit = 1000;  // normwise backward error above this many u
-  double conditioning_limit = 0.01;    // condition number x u at or above this
+  double conditioning_limit = 0.01;    // condition number x max(u, entry_error) at or above this
+  // The relative error of A's entries beyond rounding (quadrature, measurement): X can be
+  // no more accurate than condition number x entry_error, whatever the solve. 0: exact.
+  double entry_error = 0;
   // The growth is flagged when growth x u, the backward error it can cause, passes the
   // backward error limit: a growth above backward_error_limit.
 };

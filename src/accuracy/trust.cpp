@@ -47,7 +47,13 @@ void add_flags(trust_report& t, const trust_rules& rules) {
          "the backward error is " + figure(eta / u) + " u, above " +
              figure(rules.backward_error_limit) + " u: the solve itself went wrong");
   const double k = std::max(t.condition_1, t.condition_inf);
-  if (!(k * u < rules.conditioning_limit))
+  if (rules.entry_error > u) {
+    if (!(k * rules.entry_error < rules.conditioning_limit))
+      flag(t, "ill_conditioned",
+           "condition number x entry error = " + figure(k * rules.entry_error) +
+               " >= " + figure(rules.conditioning_limit) +
+               ": errors of A's entries may change X beyond its first two digits");
+  } else if (!(k * u < rules.conditioning_limit))
     flag(t, "ill_conditioned",
          "condition number x u = " + figure(k * u) + " >= " + figure(rules.conditioning_limit) +
              ": A is nearly singular and X may carry no correct digit");
@@ -85,7 +91,7 @@ trust_report judge(const factor_figures& f, const matrix_figures& m, const solut
   const int most = type_digits(unit_roundoff);
   t.trusted_digits = most;
   for (const double eta : s.normwise) {
-    t.forward_bounds.push_back(forward_bound(t.condition_inf, eta));
+    t.forward_bounds.push_back(forward_bound(t.condition_inf, eta + rules.entry_error));
     t.trusted_digits = std::min(t.trusted_digits, digits_within(t.forward_bounds.back(), most));
   }
   add_flags(t, rules);
