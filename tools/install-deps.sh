@@ -3,7 +3,8 @@
 # Idempotent: does nothing when every package is already installed.
 set -eu
 # openssh-client: OpenMPI looks for ssh at start-up even for runs on one machine.
-packages="build-essential cmake pkg-config openssh-client
+# gfortran: the Fortran module over the C interface.
+packages="build-essential gfortran cmake pkg-config openssh-client
   openmpi-bin libopenmpi-dev
   libopenblas-dev liblapacke-dev
   libhdf5-openmpi-dev hdf5-tools

@@ -41,6 +41,7 @@ struct trust_rules {
 
 struct trust_report {
   double unit_roundoff = 0;
+  double entry_error = 0;  // the rules' accuracy of A's entries, which the bounds include
   double condition_1 = 0, condition_inf = 0;  // estimates of kappa(M) in the 1- and inf-norm
   double growth = 0;                          // max|U| / max|A|
   double smallest_pivot = 0;                  // min|U_ii| / max|A|

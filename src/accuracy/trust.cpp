@@ -83,6 +83,7 @@ trust_report judge(const factor_figures& f, const matrix_figures& m, const solut
                    double unit_roundoff, const trust_rules& rules) {
   trust_report t;
   t.unit_roundoff = unit_roundoff;
+  t.entry_error = rules.entry_error;
   t.condition_1 = m.norm_1 * f.inverse_norm_1;
   t.condition_inf = m.norm_inf * f.inverse_norm_inf;
   t.growth = ratio(f.max_u, m.max_abs);

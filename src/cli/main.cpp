@@ -4,6 +4,7 @@
 #include <unistd.h>
 
 #include <CLI/CLI.hpp>
+#include <complex>
 #include <csignal>
 #include <cstdio>
 #include <cstdlib>
@@ -12,6 +13,7 @@
 #include <fstream>
 #include <functional>
 #include <map>
+#include <numbers>
 #include <memory>
 #include <new>
 #include <nlohmann/json.hpp>
@@ -291,6 +293,9 @@ void print_trust(const trust_report& t, const std::optional<refinement>& refined
   else
     std::printf("  trust      no digit of %s is certain (condition x backward error >= 1)\n",
                 where);
+  if (t.entry_error > t.unit_roundoff)
+    std::printf("  entries    accurate to %.1e (relative), which the bound above includes\n",
+                t.entry_error);
   for (std::size_t k = 0; k < t.flags.size(); ++k)
     std::printf("  flag       %s: %s\n", t.flags[k].c_str(), t.reasons[k].c_str());
 }
@@ -439,6 +444,53 @@ int run_demo(const common_options& c, const workflows::demo_options& o, std::int
   return code;
 }
 
+// The known answer of a conductor problem, and where it comes from.
+void print_conductor_answer(const workflows::conductor_options& o,
+                            const workflows::conductor_result& r) {
+  const double off = std::abs(r.computed - r.expected) / std::abs(r.expected);
+  if (o.problem == "sphere-helmholtz") {
+    std::printf(
+        "  answer     mean density %.6g%+.6gi against k / (exp(ikR) sin kR) = %.6g%+.6gi: "
+        "off by %.2f %%\n",
+        r.computed.real(), r.computed.imag(), r.expected.real(), r.expected.imag(), 100 * off);
+    std::printf("             kR = %.4g; the interior resonances sin kR = 0 lie at kR = %.4g, %.4g, ...\n",
+                o.wavenumber * o.size, std::numbers::pi, 2 * std::numbers::pi);
+    return;
+  }
+  const char* source = o.problem == "cube"
+                           ? "4 pi a x 0.66067813 (Hwang & Mascagni 2004)"
+                           : "4 pi R (textbook electrostatics)";
+  std::printf("  answer     capacitance %.6g against %s = %.6g: %+.2f %%\n", r.computed.real(),
+              source, r.expected.real(), 100 * (r.computed.real() / r.expected.real() - 1));
+}
+
+int run_conductor_demo(const common_options& c, const workflows::conductor_options& o,
+                       std::int64_t digits) {
+  const auto grid = make_grid(c);
+  const auto r = workflows::conductor_demo(grid, o);
+  const int code = digits_code(grid, r.trust, digits);
+  if (grid.rank() != 0) return code;
+  std::printf("gridlu demo: a conductor held at potential 1 (eps0 = 1), %s\n", r.surface.c_str());
+  std::printf("  system     %s, collocation at the panel centroids, %s, n = %lld\n",
+              r.kernel.c_str(), r.type.c_str(), static_cast<long long>(r.n));
+  std::printf("  grid       %dx%d on %d rank(s), block %lld\n", grid.prows(), grid.pcols(),
+              grid.size(), static_cast<long long>(r.block));
+  std::printf("  time       assemble %.2f s | factor %.2f s | solve %.2f s | check %.2f s\n",
+              r.assemble_seconds, r.factor_seconds, r.solve_seconds, r.check_seconds);
+  std::printf("  speed      %.2f GFLOP/s in the factorization\n", r.gflops);
+  if (r.corrections >= 0)
+    std::printf("  precision  %s: single-precision factors, %d correction(s)\n",
+                o.precision.c_str(), r.corrections);
+  print_conductor_answer(o, r);
+  print_trust(r.trust, std::nullopt);
+  std::printf(
+      "  note       the trust figures judge the linear solve; how near the answer comes to its "
+      "known value is the discretisation's doing\n");
+  std::fflush(stdout);
+  write_report(grid, c.report, r.json(o));
+  return code;
+}
+
 // Each subcommand: its options, bound to values that live as long as the program, and
 // what runs when it is chosen.
 struct subcommand {
@@ -481,26 +533,90 @@ subcommand add_bench(CLI::App& app, double) {
           }};
 }
 
+// The mesh and kernel options of the conductor problems (`which`: the problem, or "" for
+// all of them, as demo takes them before it knows its problem).
+void add_conductor_options(CLI::App* cmd, workflows::conductor_options& o,
+                           const std::string& which) {
+  if (which != "cube") {
+    cmd->add_option("--subdivisions", o.subdivisions,
+                    "sphere: times the icosahedron's triangles are split in four (20 x 4^S "
+                    "panels)")
+        ->capture_default_str();
+    cmd->add_option("--radius", o.size, "sphere: its radius")->capture_default_str();
+  }
+  if (which.empty() || which == "cube") {
+    cmd->add_option("--divisions", o.divisions, "cube: squares along each edge (12 x M^2 panels)")
+        ->capture_default_str();
+    cmd->add_option("--side", o.size, "cube: its side")->capture_default_str();
+  }
+  if (which.empty() || which == "sphere-helmholtz")
+    cmd->add_option("--wavenumber", o.wavenumber, "sphere-helmholtz: k of exp(ikr) / (4 pi r)")
+        ->capture_default_str();
+}
+
+// Options demo takes that its problem does not use.
+void refuse_foreign_options(const CLI::App* cmd, const std::string& problem) {
+  const std::pair<const char*, bool> used[] = {
+      {"--n", problem == "random"},
+      {"--rhs", problem == "random"},
+      {"--seed", problem == "random"},
+      {"--subdivisions", problem.starts_with("sphere")},
+      {"--radius", problem.starts_with("sphere")},
+      {"--divisions", problem == "cube"},
+      {"--side", problem == "cube"},
+      {"--wavenumber", problem == "sphere-helmholtz"}};
+  for (const auto& [name, fits] : used)
+    if (!fits && cmd->count(name) > 0)
+      throw error(error_kind::usage, std::string(name) + " does not apply to the " + problem +
+                                         " problem");
+}
+
 subcommand add_demo(CLI::App& app, double) {
   auto c = std::make_shared<common_options>();
   auto o = std::make_shared<workflows::demo_options>();
-  auto* cmd =
-      app.add_subcommand("demo", "solve a generated random system and report its backward error");
-  cmd->add_option("--n", o->n, "number of unknowns")->capture_default_str();
-  cmd->add_option("--rhs", o->nrhs, "number of right-hand sides")->capture_default_str();
+  auto conductor = std::make_shared<workflows::conductor_options>();
+  auto problem = std::make_shared<std::string>("sphere");
+  auto type = std::make_shared<std::string>();
+  auto* cmd = app.add_subcommand(
+      "demo",
+      "solve a built-in problem in memory: a charged conductor whose answer is known, or a "
+      "random system, and say how far the answer can be trusted");
+  cmd->add_option("problem", *problem, "sphere, cube, sphere-helmholtz or random")
+      ->check(CLI::IsMember({"sphere", "cube", "sphere-helmholtz", "random"}))
+      ->capture_default_str();
+  add_conductor_options(cmd, *conductor, "");
+  cmd->add_option("--n", o->n, "random: number of unknowns")->capture_default_str();
+  cmd->add_option("--rhs", o->nrhs, "random: number of right-hand sides")->capture_default_str();
+  cmd->add_option("--seed", o->seed, "random: seed of the generated system")->capture_default_str();
   add_block(cmd, o->block);
   add_lookahead(cmd, o->lookahead);
-  cmd->add_option("--type", o->type, "float32, float64, complex64 or complex128")
-      ->capture_default_str();
-  cmd->add_option("--seed", o->seed, "seed of the generated system")->capture_default_str();
+  cmd->add_option("--type", *type,
+                  "float32, float64, complex64 or complex128 (default: float64, complex128 for "
+                  "sphere-helmholtz)");
   add_precision(cmd, o->precision, "double");
   add_memory_limit(cmd, o->memory_per_rank);
   auto digits = std::make_shared<std::int64_t>(0);
   add_require_digits(cmd, *digits);
   add_common(cmd, *c);
-  cmd->footer("Example:\n  mpiexec -n 2 gridlu demo --n 3000 --rhs 4\n\n" +
-              std::string(exit_codes_help));
-  return {cmd, [=] { return run_demo(*c, *o, *digits); }};
+  cmd->footer(
+      "Examples:\n  mpiexec -n 2 gridlu demo\n  mpiexec -n 2 gridlu demo cube --divisions 20\n"
+      "  mpiexec -n 2 gridlu demo sphere-helmholtz --subdivisions 3 --wavenumber 3.1\n"
+      "  mpiexec -n 2 gridlu demo random --n 3000 --rhs 4\n\n" +
+      std::string(exit_codes_help));
+  return {cmd, [=] {
+            refuse_foreign_options(cmd, *problem);
+            if (*problem == "random") {
+              if (!type->empty()) o->type = *type;
+              return run_demo(*c, *o, *digits);
+            }
+            conductor->problem = *problem;
+            conductor->type = *type;
+            conductor->block = o->block;
+            conductor->lookahead = o->lookahead;
+            conductor->precision = o->precision;
+            conductor->memory_per_rank = o->memory_per_rank;
+            return run_conductor_demo(*c, *conductor, *digits);
+          }};
 }
 
 subcommand add_solve(CLI::App& app, double started) {
@@ -529,6 +645,10 @@ subcommand add_solve(CLI::App& app, double started) {
   add_precision(cmd, o->precision, "double");
   add_memory_limit(cmd, c->memory_per_rank);
   add_require_digits(cmd, o->require_digits);
+  cmd->add_option("--entry-error", o->entry_error,
+                  "relative accuracy of A's entries (quadrature, measurement), which the trust "
+                  "figures then include (default: A's file's `entry_error` attribute, else 0)")
+      ->check(CLI::NonNegativeNumber);
   cmd->add_option("--save-factors", o->save_factors, "also write the LU factors to this file");
   cmd->add_option("--factors", o->factors, "solve with factors saved earlier instead of factoring");
   cmd->add_flag("--force", o->force,
@@ -548,10 +668,10 @@ subcommand add_solve(CLI::App& app, double started) {
   add_common(cmd, *c);
   cmd->footer(
       "Examples:\n"
-      "  mpiexec -n 4 gridlu solve plate.h5 --out charges.h5\n"
-      "  mpiexec -n 4 gridlu solve plate.h5 --out x.h5 --save-factors plate-lu.h5\n"
+      "  mpiexec -n 4 gridlu solve sphere.h5 --out charges.h5\n"
+      "  mpiexec -n 4 gridlu solve sphere.h5 --out x.h5 --save-factors sphere-lu.h5\n"
       "  mpiexec -n 4 gridlu solve body.h5 --out x.h5 --precision mixed\n"
-      "  mpiexec -n 4 gridlu solve plate.h5 --rhs-file loads2.h5 --factors plate-lu.h5 --out "
+      "  mpiexec -n 4 gridlu solve sphere.h5 --rhs-file loads2.h5 --factors sphere-lu.h5 --out "
       "x2.h5\n"
       "  mpiexec -n 64 gridlu solve big.h5 --out x.h5 --checkpoint ckpt --checkpoint-every 30 "
       "--stop-after 710\n\n" +
@@ -634,6 +754,42 @@ void print_generated(const workflows::generate_options& o) {
         o.output.c_str());
 }
 
+void print_generated_conductor(const workflows::conductor_options& o) {
+  const auto p = workflows::conductor_problem(o);
+  std::printf("gridlu generate: %s, %s -> %s\n", o.problem.c_str(), p.mesh.name().c_str(),
+              o.output.c_str());
+}
+
+// generate sphere, cube and sphere-helmholtz: one set of options, the problem named by
+// the subcommand chosen.
+std::shared_ptr<workflows::conductor_options> add_generate_conductors(CLI::App* generate,
+                                                                      common_options& c) {
+  auto o = std::make_shared<workflows::conductor_options>();
+  o->problem.clear();
+  const std::pair<const char*, const char*> kinds[] = {
+      {"sphere", "a charged sphere (Laplace single layer): capacitance 4 pi R"},
+      {"cube", "a charged cube (Laplace single layer): capacitance 4 pi a x 0.66067813"},
+      {"sphere-helmholtz",
+       "a sphere at unit boundary data, Helmholtz single layer: complex, density "
+       "k / (exp(ikR) sin kR)"}};
+  for (const auto& [name, what] : kinds) {
+    auto* cmd = generate->add_subcommand(name, what);
+    add_conductor_options(cmd, *o, name);
+    cmd->add_option("--out", o->output, "HDF5 file to write")->required();
+    cmd->add_option("--type", o->type,
+                    "float32, float64, complex64 or complex128 (default: float64, complex128 "
+                    "for sphere-helmholtz)");
+    cmd->add_flag("--force", o->force, "replace the file if it exists");
+    add_memory_limit(cmd, o->memory_per_rank);
+    add_common(cmd, c);
+    cmd->parse_complete_callback([o, name = std::string(name)] { o->problem = name; });
+    cmd->footer(
+        "Writes A, B (all ones: potential 1 on the surface), `areas` and `centroids` of the "
+        "panels; X is the charge density per panel, and sum(X * areas) the total charge.");
+  }
+  return o;
+}
+
 subcommand add_generate(CLI::App& app, double) {
   auto c = std::make_shared<common_options>();
   auto o = std::make_shared<workflows::generate_options>();
@@ -653,11 +809,18 @@ subcommand add_generate(CLI::App& app, double) {
     add_generate_kind(cmd, std::string(name_of(kind)), what, *o, *c)
         ->parse_complete_callback([o, kind = kind] { o->kind = kind; })
         ->footer("B is A times a vector of ones: the exact solution is all ones.");
+  auto conductor = add_generate_conductors(cmd, *c);
   cmd->footer(
       "Examples:\n  mpiexec -n 2 gridlu generate random --n 4000 --rhs 2 --out system.h5\n"
-      "  mpiexec -n 2 gridlu generate wilkinson --n 40 --out wilkinson.h5");
+      "  mpiexec -n 2 gridlu generate wilkinson --n 40 --out wilkinson.h5\n"
+      "  mpiexec -n 2 gridlu generate sphere --subdivisions 4 --out sphere.h5");
   return {cmd, [=] {
             const auto grid = make_grid(*c);
+            if (workflows::is_conductor(conductor->problem)) {
+              workflows::generate_conductor_file(grid, *conductor);
+              if (grid.rank() == 0) print_generated_conductor(*conductor);
+              return 0;
+            }
             workflows::generate_file(grid, *o);
             if (grid.rank() == 0) print_generated(*o);
             return 0;

@@ -11,6 +11,7 @@
 #include "gridlu/version.hpp"
 #include "io/staged.hpp"
 #include "kernels/blas.hpp"
+#include "workflows/dispatch.hpp"
 #include "workflows/numerical.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
@@ -20,13 +21,6 @@ namespace {
 
 void require_order(index_t n) {
   if (n < 1) throw error(error_kind::usage, "the order N must be at least 1");
-}
-
-// What the one-line refusal names: "a float64 system of order 3000 (gridlu demo, grid 1x2)".
-std::string described(const std::string& thing, const std::string& type, index_t n,
-                      const process_grid& grid, const std::string& command) {
-  return "a " + type + " " + thing + " of order " + std::to_string(n) + " (gridlu " + command +
-         ", grid " + std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols()) + ")";
 }
 
 // Every rank multiplies square matrices at once: the rate the same cores reach on the
@@ -217,21 +211,6 @@ demo_result demo_typed(const process_grid& grid, const demo_options& o) {
     r.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
   });
   return r;
-}
-
-// Calls f with a value of the element type named `type`, or refuses the name.
-template <class F>
-void with_type(const std::string& type, F&& f) {
-  if (!dispatch_scalar(type, f))
-    throw error(error_kind::usage,
-                "unknown element type '" + type + "' (float32, float64, complex64 or complex128)");
-}
-
-template <class R, class F>
-R by_type(const std::string& type, F&& f) {
-  R result;
-  with_type(type, [&](auto zero) { result = f(zero); });
-  return result;
 }
 
 // Row i of A times the vector of ones, for A of real entries: summed in long double and

@@ -18,7 +18,7 @@ nlohmann::json to_json(const job& j) {
 namespace {
 bool is_later_key(std::string_view key) {
   return key == "solve_with" || key == "refine" || key == "require_digits" || key == "precision" ||
-         key == "fallback";
+         key == "fallback" || key == "entry_error";
 }
 }  // namespace
 

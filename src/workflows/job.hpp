@@ -31,6 +31,9 @@ struct job {
   double checkpoint_every = 0;      // seconds; 0: only when stopping
   bool refine = false;              // iterative refinement of X in the working precision
   std::int64_t require_digits = 0;  // fewer trusted digits fail the run (X is still written)
+  // The relative accuracy of A's entries (trust_rules::entry_error); negative: A's file
+  // says, in its `entry_error` attribute, or they are exact.
+  double entry_error = -1;
   // "double", or "mixed"/"mixed-krylov": single-precision factors of op(A), refined in
   // double (gridlu/mixed.hpp).
   std::string precision = "double";
@@ -68,6 +71,7 @@ void for_each_field(J& j, F&& f) {
   f("checkpoint_every_seconds", j.checkpoint_every);
   f("refine", j.refine);
   f("require_digits", j.require_digits);
+  f("entry_error", j.entry_error);
   f("precision", j.precision);
   f("fallback", j.fallback);
   f("output", j.output);

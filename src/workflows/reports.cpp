@@ -23,6 +23,7 @@ nlohmann::json phases_json(const lu_phases& p) {
 // those are written as null.
 nlohmann::json trust_json(const trust_report& t) {
   return {{"unit_roundoff", t.unit_roundoff},
+          {"entry_error", t.entry_error},
           {"normwise_backward_error", t.worst_normwise()},
           {"normwise_backward_errors", t.backward.normwise},
           {"componentwise_backward_error", t.worst_componentwise()},
@@ -147,6 +148,31 @@ nlohmann::json demo_result::json(const demo_options& o) const {
                       {"gflops", gflops},
                       {"status", "solved"}};
   j.update(precision_json(precision));
+  j.update(trust_json(trust));
+  return j;
+}
+
+nlohmann::json conductor_result::json(const conductor_options& o) const {
+  const auto pair = [](std::complex<double> z) { return std::vector<double>{z.real(), z.imag()}; };
+  nlohmann::json j = {{"command", "demo"},
+                      {"problem", o.problem},
+                      {"surface", surface},
+                      {"kernel", kernel},
+                      {"n", n},
+                      {"block", block},
+                      {"type", type},
+                      {"times",
+                       {{"assemble", assemble_seconds},
+                        {"factor", factor_seconds},
+                        {"solve", solve_seconds},
+                        {"check", check_seconds}}},
+                      {"gflops", gflops},
+                      {"quantity", quantity},
+                      {"computed", pair(computed)},
+                      {"expected", pair(expected)},
+                      {"relative_difference", std::abs(computed - expected) / std::abs(expected)},
+                      {"status", "solved"}};
+  if (corrections >= 0) j["corrections"] = corrections;
   j.update(trust_json(trust));
   return j;
 }

@@ -33,6 +33,12 @@ double element_bytes(const std::string& type) {
   return bytes;
 }
 
+trust_rules rules_of(const job& j) {
+  trust_rules rules;
+  rules.entry_error = std::max(0.0, j.entry_error);
+  return rules;
+}
+
 solve_with system_of(const job& j) {
   if (j.solve_with == "A^T") return solve_with::transpose;
   if (j.solve_with == "A^H") return solve_with::adjoint;
@@ -81,6 +87,7 @@ job job_of(const solve_options& o) {
   j.solve_with = o.solve_with;
   j.refine = o.refine;
   j.require_digits = o.require_digits;
+  j.entry_error = o.entry_error;
   j.precision = o.precision;
   j.block = o.block;
   j.lookahead = o.lookahead;
@@ -203,6 +210,8 @@ inputs open_inputs(const process_grid& grid, job& j) {
   j.rhs_size = b_id.size;
   j.rhs_mtime = b_id.mtime;
   require_precision(j.precision, j.type);
+  if (j.entry_error < 0)
+    j.entry_error = in.input.get_attribute_as<double>("/", "entry_error").value_or(0);
   return in;
 }
 
@@ -497,7 +506,7 @@ private:
         const auto from_factors = measure_factors(single, lu.pivots, solve_with::a);
         const auto& figures = r_.precision.mixed->matrix;
         const auto errors = backward_errors(a_, figures, *x, b_, residual(a_, *x, b_));
-        r_.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
+        r_.trust = judge(from_factors, figures, errors, unit_roundoff<T>(), rules_of(j_));
       });
       return true;
     }
@@ -575,7 +584,7 @@ private:
       } else {
         errors = backward_errors(m, figures, x, b_, residual(m, x, b_));
       }
-      r_.trust = judge(from_factors, figures, errors, unit_roundoff<T>());
+      r_.trust = judge(from_factors, figures, errors, unit_roundoff<T>(), rules_of(j_));
     });
     return x;
   }

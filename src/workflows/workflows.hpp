@@ -2,6 +2,7 @@
 // and returns its figures; printing is the CLI's business.
 #pragma once
 
+#include <complex>
 #include <cstdint>
 #include <functional>
 #include <optional>
@@ -9,6 +10,7 @@
 #include <vector>
 
 #include "gridlu/accuracy.hpp"
+#include "gridlu/bem.hpp"
 #include "gridlu/generate.hpp"
 #include "gridlu/grid.hpp"
 #include "gridlu/lu.hpp"
@@ -122,6 +124,49 @@ struct demo_result {
 // trusted. Throws gridlu::error (numerical) for an exactly singular A or a non-finite X.
 demo_result demo(const process_grid& grid, const demo_options& options);
 
+// A conductor held at potential 1 (gridlu/bem.hpp): assembled in memory by every rank,
+// or written to a file.
+struct conductor_options {
+  std::string problem = "sphere";  // "sphere", "cube" or "sphere-helmholtz"
+  int subdivisions = 4;            // sphere: 20 * 4^s panels
+  int divisions = 16;              // cube: 12 * m^2 panels
+  double size = 1;                 // the sphere's radius or the cube's side
+  double wavenumber = 2;           // sphere-helmholtz
+  std::string type;                // empty: float64, or complex128 for Helmholtz
+  index_t block = 0;               // 0: default_block, or n if smaller
+  int lookahead = default_lookahead;
+  std::string precision = "double";
+  std::int64_t memory_per_rank = 0;
+  std::string output;  // generate: the file, replaced only with `force`
+  bool force = false;
+};
+
+// The names of the conductor problems, and whether `name` is one.
+bool is_conductor(const std::string& name);
+bem::problem conductor_problem(const conductor_options& options);
+// The known answer: the capacitance (Laplace) or the constant density (Helmholtz).
+std::complex<double> conductor_expected(const conductor_options& options);
+
+struct conductor_result {
+  std::string surface, kernel, type;
+  index_t n = 0, block = 0;
+  double assemble_seconds = 0, factor_seconds = 0, solve_seconds = 0, check_seconds = 0;
+  double gflops = 0;
+  // The capacitance (Laplace) or the mean density (Helmholtz), and its known value.
+  std::string quantity;
+  std::complex<double> computed, expected;
+  int corrections = -1;  // of a mixed-precision refinement; -1: none ran
+  trust_report trust;    // with the quadrature's entry error in its rules
+  nlohmann::json json(const conductor_options& asked) const;
+};
+
+// Assembles the conductor's system on the grid, factors, solves for unit potential and
+// measures how far the density can be trusted, the entries' quadrature error included.
+conductor_result conductor_demo(const process_grid& grid, const conductor_options& options);
+// Writes the conductor's system to an HDF5 file: A, B (ones), the panels' areas and
+// centroids, and what the system is (attributes, the entry error among them).
+void generate_conductor_file(const process_grid& grid, const conductor_options& options);
+
 // Progress of a factorization: fraction of its flops done, seconds so far, GFLOP/s so far.
 using progress_callback = std::function<void(double fraction, double seconds, double gflops)>;
 // Something the user should know at once (what --force discards, for instance).
@@ -137,6 +182,7 @@ struct solve_options {
   std::string solve_with = "A";       // "A", "A^T" or "A^H": the system's matrix
   bool refine = false;                // iterative refinement in the working precision
   std::int64_t require_digits = 0;    // recorded in the job; the command line judges it
+  double entry_error = -1;            // A's entries' relative accuracy; negative: the file's
   std::string precision = "double";   // or "mixed", "mixed-krylov"
   bool force = false;                 // replace existing outputs; discard another job's checkpoint
   std::string save_factors, factors;  // paths, or empty
