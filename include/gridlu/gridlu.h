@@ -24,9 +24,18 @@ enum gridlu_status {
   GRIDLU_ERROR_RESOURCE = 6   /* out of memory, disk full, output not writable */
 };
 
-enum gridlu_type { GRIDLU_FLOAT32 = 0, GRIDLU_FLOAT64 = 1, GRIDLU_COMPLEX64 = 2, GRIDLU_COMPLEX128 = 3 };
+enum gridlu_type {
+  GRIDLU_FLOAT32 = 0,
+  GRIDLU_FLOAT64 = 1,
+  GRIDLU_COMPLEX64 = 2,
+  GRIDLU_COMPLEX128 = 3
+};
 enum gridlu_system { GRIDLU_SYSTEM_A = 0, GRIDLU_SYSTEM_TRANSPOSE = 1, GRIDLU_SYSTEM_ADJOINT = 2 };
-enum gridlu_precision { GRIDLU_PRECISION_WORKING = 0, GRIDLU_PRECISION_MIXED = 1, GRIDLU_PRECISION_MIXED_KRYLOV = 2 };
+enum gridlu_precision {
+  GRIDLU_PRECISION_WORKING = 0,
+  GRIDLU_PRECISION_MIXED = 1,
+  GRIDLU_PRECISION_MIXED_KRYLOV = 2
+};
 
 typedef struct gridlu_grid gridlu_grid;
 typedef struct gridlu_matrix gridlu_matrix;
@@ -39,15 +48,18 @@ const char* gridlu_last_error(void);
 /* A p x q process grid over comm (duplicated; comm may be freed afterwards); p = q = 0
  * picks the default shape. */
 int gridlu_grid_create(MPI_Comm comm, int p, int q, gridlu_grid** grid);
+/* The same for a Fortran communicator handle (MPI_Comm_c2f's kind): Fortran callers
+ * need no MPI C types. */
+int gridlu_grid_create_f(MPI_Fint comm, int p, int q, gridlu_grid** grid);
 /* This rank's place: the grid's shape and its process row and column. Local. */
 int gridlu_grid_shape(const gridlu_grid* grid, int* p, int* q, int* myrow, int* mycol);
-int gridlu_grid_free(gridlu_grid* grid); /* after every matrix on it */
+int gridlu_grid_free(gridlu_grid* grid); /* after every matrix on it (usage error before) */
 
 /* A rows x cols matrix distributed block-cyclically in blocks of `block` (0: gridlu's
  * default), zero-filled. */
 int gridlu_matrix_create(gridlu_grid* grid, enum gridlu_type type, int64_t rows, int64_t cols,
                          int64_t block, gridlu_matrix** matrix);
-int gridlu_matrix_free(gridlu_matrix* matrix);
+int gridlu_matrix_free(gridlu_matrix* matrix); /* after its factorizations (usage error before) */
 /* Local: the type, the global sizes and the block size. */
 int gridlu_matrix_info(const gridlu_matrix* matrix, enum gridlu_type* type, int64_t* rows,
                        int64_t* cols, int64_t* block);
@@ -83,6 +95,8 @@ typedef struct gridlu_factor_options {
   enum gridlu_precision precision; /* mixed: single-precision factors, refined in double */
   const char* checkpoint_dir;      /* NULL: none; else save the state there and resume from it */
   double checkpoint_seconds;       /* seconds between checkpoints (default 600) */
+  double stop_after_seconds;       /* > 0: checkpoint and stop (GRIDLU_ERROR_STOPPED) once
+                                      the factorization ran this long; 0: never (default) */
 } gridlu_factor_options;
 /* Fills `options` with the defaults. Local. */
 void gridlu_factor_options_init(gridlu_factor_options* options);
@@ -96,7 +110,7 @@ int gridlu_factor(const gridlu_matrix* a, const gridlu_factor_options* options,
 int gridlu_factorization_free(gridlu_factorization* factors);
 
 /* Overwrites x, which holds B (n x k, on A's grid and block size), with the solution of
- * A X = B, A^T X = B or A^H X = B. */
+ * A X = B, A^T X = B or A^H X = B (mixed precision: A X = B only). */
 int gridlu_solve(const gridlu_factorization* factors, enum gridlu_system system, gridlu_matrix* x);
 
 /* How far X can be trusted as a solution of op(A) X = B, from A's factors, A and B. */
@@ -125,7 +139,8 @@ int gridlu_surface_cube(int divisions, double side, gridlu_surface** surface);
 int gridlu_surface_free(gridlu_surface* surface);
 /* Local: panel count, and panel j's centroid (x, y, z) and area. */
 int gridlu_surface_size(const gridlu_surface* surface, int64_t* panels);
-int gridlu_surface_panel(const gridlu_surface* surface, int64_t j, double centroid[3], double* area);
+int gridlu_surface_panel(const gridlu_surface* surface, int64_t j, double centroid[3],
+                         double* area);
 /* Local: the single-layer entries at wavenumber k (0: Laplace, real part only), the
  * potential at centroid i of unit density on panel j. */
 int gridlu_surface_entry(const gridlu_surface* surface, double wavenumber, int64_t i, int64_t j,
