@@ -43,8 +43,9 @@ module gridlu
   public :: gridlu_matrix_block_count, gridlu_matrix_block, gridlu_block_array, gridlu_matrix_get
   public :: gridlu_matrix_read, gridlu_matrix_write
   public :: gridlu_factor, gridlu_factorization_free, gridlu_solve, gridlu_check
-  public :: gridlu_surface_sphere, gridlu_surface_cube, gridlu_surface_free
-  public :: gridlu_surface_size, gridlu_surface_panel, gridlu_surface_entry
+  public :: gridlu_problem_sphere, gridlu_problem_cube, gridlu_problem_free
+  public :: gridlu_problem_size, gridlu_problem_panel, gridlu_problem_entry
+  public :: gridlu_problem_entry_error
 
   ! A Fortran pointer onto a block's entries, shape (ld, cols): a(1:rows, :) is the block.
   interface gridlu_block_array
@@ -172,44 +173,49 @@ module gridlu
       type(gridlu_trust) :: trust
       integer(c_int) :: s
     end function
-    function gridlu_surface_sphere(subdivisions, radius, surface) result(s) bind(c)
+    function gridlu_problem_sphere(subdivisions, radius, wavenumber, problem) result(s) bind(c)
       import :: c_int, c_double, c_ptr
       integer(c_int), value :: subdivisions
-      real(c_double), value :: radius
-      type(c_ptr) :: surface
+      real(c_double), value :: radius, wavenumber
+      type(c_ptr) :: problem
       integer(c_int) :: s
     end function
-    function gridlu_surface_cube(divisions, side, surface) result(s) bind(c)
+    function gridlu_problem_cube(divisions, side, problem) result(s) bind(c)
       import :: c_int, c_double, c_ptr
       integer(c_int), value :: divisions
       real(c_double), value :: side
-      type(c_ptr) :: surface
+      type(c_ptr) :: problem
       integer(c_int) :: s
     end function
-    function gridlu_surface_free(surface) result(s) bind(c)
+    function gridlu_problem_free(problem) result(s) bind(c)
       import :: c_int, c_ptr
-      type(c_ptr), value :: surface
+      type(c_ptr), value :: problem
       integer(c_int) :: s
     end function
-    function gridlu_surface_size(surface, panels) result(s) bind(c)
+    function gridlu_problem_size(problem, panels) result(s) bind(c)
       import :: c_int, c_int64_t, c_ptr
-      type(c_ptr), value :: surface
+      type(c_ptr), value :: problem
       integer(c_int64_t) :: panels
       integer(c_int) :: s
     end function
-    function gridlu_surface_panel(surface, j, centroid, area) result(s) bind(c)
+    function gridlu_problem_panel(problem, j, centroid, area) result(s) bind(c)
       import :: c_int, c_int64_t, c_double, c_ptr
-      type(c_ptr), value :: surface
+      type(c_ptr), value :: problem
       integer(c_int64_t), value :: j
       real(c_double) :: centroid(3), area
       integer(c_int) :: s
     end function
-    function gridlu_surface_entry(surface, wavenumber, i, j, re, im) result(s) bind(c)
+    function gridlu_problem_entry(problem, i, j, re, im) result(s) bind(c)
       import :: c_int, c_int64_t, c_double, c_ptr
-      type(c_ptr), value :: surface
-      real(c_double), value :: wavenumber
+      type(c_ptr), value :: problem
       integer(c_int64_t), value :: i, j
       real(c_double) :: re, im
+      integer(c_int) :: s
+    end function
+    function gridlu_problem_entry_error(problem, entry_error) result(s) bind(c)
+      import :: c_int, c_double, c_ptr
+      type(c_ptr), value :: problem
+      real(c_double) :: entry_error
       integer(c_int) :: s
     end function
   end interface

@@ -40,7 +40,7 @@ enum gridlu_precision {
 typedef struct gridlu_grid gridlu_grid;
 typedef struct gridlu_matrix gridlu_matrix;
 typedef struct gridlu_factorization gridlu_factorization;
-typedef struct gridlu_surface gridlu_surface;
+typedef struct gridlu_problem gridlu_problem;
 
 /* The message of the last failed call on this thread ("" after a success). Local. */
 const char* gridlu_last_error(void);
@@ -132,19 +132,26 @@ int gridlu_check(const gridlu_factorization* factors, enum gridlu_system system,
                  const gridlu_matrix* x, const gridlu_matrix* b, double entry_error,
                  gridlu_trust* trust);
 
-/* Built-in boundary-element surfaces (see gridlu/bem.hpp): a sphere from an icosahedron
- * subdivided `subdivisions` times (20 * 4^s panels), a cube of m x m squares per face. */
-int gridlu_surface_sphere(int subdivisions, double radius, gridlu_surface** surface);
-int gridlu_surface_cube(int divisions, double side, gridlu_surface** surface);
-int gridlu_surface_free(gridlu_surface* surface);
-/* Local: panel count, and panel j's centroid (x, y, z) and area. */
-int gridlu_surface_size(const gridlu_surface* surface, int64_t* panels);
-int gridlu_surface_panel(const gridlu_surface* surface, int64_t j, double centroid[3],
+/* Built-in boundary-element problems (see gridlu/bem.hpp): a conductor at potential 1,
+ * piecewise-constant density on flat triangles, collocation at their centroids. The
+ * sphere comes from an icosahedron subdivided `subdivisions` times (20 * 4^s panels), the
+ * cube [0, side]^3 from m x m squares per face (12 m^2 panels). Wavenumber 0 gives the
+ * Laplace kernel 1 / (4 pi r) (real entries), k > 0 the Helmholtz kernel
+ * exp(ikr) / (4 pi r). */
+int gridlu_problem_sphere(int subdivisions, double radius, double wavenumber,
+                          gridlu_problem** problem);
+int gridlu_problem_cube(int divisions, double side, gridlu_problem** problem);
+int gridlu_problem_free(gridlu_problem* problem);
+/* Local: the panel count (the order of the system), and panel j's centroid and area. */
+int gridlu_problem_size(const gridlu_problem* problem, int64_t* panels);
+int gridlu_problem_panel(const gridlu_problem* problem, int64_t j, double centroid[3],
                          double* area);
-/* Local: the single-layer entries at wavenumber k (0: Laplace, real part only), the
- * potential at centroid i of unit density on panel j. */
-int gridlu_surface_entry(const gridlu_surface* surface, double wavenumber, int64_t i, int64_t j,
-                         double* re, double* im);
+/* Local: entry (i, j), the potential at centroid i of unit density on panel j (im is 0
+ * for Laplace), and the bound on any entry's relative quadrature error, for
+ * gridlu_check's entry_error. */
+int gridlu_problem_entry(const gridlu_problem* problem, int64_t i, int64_t j, double* re,
+                         double* im);
+int gridlu_problem_entry_error(const gridlu_problem* problem, double* entry_error);
 
 #ifdef __cplusplus
 }

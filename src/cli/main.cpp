@@ -484,8 +484,8 @@ int run_conductor_demo(const common_options& c, const workflows::conductor_optio
   print_conductor_answer(o, r);
   print_trust(r.trust, std::nullopt);
   std::printf(
-      "  note       the trust figures judge the linear solve; how near the answer comes to its "
-      "known value is the discretisation's doing\n");
+      "  note       these figures judge the linear solve; the gap to the known value is the "
+      "discretisation's\n");
   std::fflush(stdout);
   write_report(grid, c.report, r.json(o));
   return code;
