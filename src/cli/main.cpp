@@ -460,7 +460,7 @@ void print_conductor_answer(const workflows::conductor_options& o,
   const char* source = o.problem == "cube"
                            ? "4 pi a x 0.66067813 (Hwang & Mascagni 2004)"
                            : "4 pi R (textbook electrostatics)";
-  std::printf("  answer     capacitance %.6g against %s = %.6g: %+.2f %%\n", r.computed.real(),
+  std::printf("  answer     capacitance %.8g against %s = %.8g: %+.2f %%\n", r.computed.real(),
               source, r.expected.real(), 100 * (r.computed.real() / r.expected.real() - 1));
 }
 
