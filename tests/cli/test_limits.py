@@ -87,7 +87,7 @@ with suite.case("generate random --n 1000000 complex128: exit 6 at once, nothing
 
 with suite.case("demo --n 200000 on 2 ranks: exit 6 at once, need from the 1x2 layout") as c:
     started = time.monotonic()
-    run = suite.run("demo", "--n", 200000, ranks=2)
+    run = suite.run("demo", "random", "--n", 200000, ranks=2)
     line = refused_promptly(c, run, started, RESOURCE, r"not enough memory.*ranks")
     check_need(c, line, *expected_need(200000, 4, 224, (1, 2), 8, vectors=3, lookahead=1))
 
@@ -135,7 +135,7 @@ for options, mention in ((["--block", 1000000000], r"between 1 and the order 100
                          (["--block", 0], r"at least 1"),
                          (["--memory-per-rank", "12X"], r"not a memory size")):
     with suite.case(f"demo --n 100 {' '.join(map(str, options))}: exit 2") as c:
-        c.failed_with(suite.run("demo", "--n", 100, *options), USAGE, mention)
+        c.failed_with(suite.run("demo", "random", "--n", 100, *options), USAGE, mention)
 
 with suite.case("solve --block 5000 of an order-3000 system: exit 2") as c:
     empty_system(c.dir / "big.h5", 3000)

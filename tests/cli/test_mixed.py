@@ -488,7 +488,7 @@ with suite.case("usage errors: mixed on float32/complex64, with --save-factors, 
 with suite.case("demo --precision mixed --n 300 --rhs 2 and bench --precision mixed --n 400, "
                 "2 ranks: reports carry the precision; backward errors of double's class") as c:
     report = c.dir / "demo.json"
-    run = suite.run("demo", "--n", 300, "--rhs", 2, "--block", 32, "--precision", "mixed",
+    run = suite.run("demo", "random", "--n", 300, "--rhs", 2, "--block", 32, "--precision", "mixed",
                     "--report", report, ranks=2)
     c.succeeded(run)
     r = load(report)

@@ -472,7 +472,7 @@ def limit_allows_start(c):
     """The limit leaves MPI's start-up alone: a demo (which writes no file) runs under it.
     Otherwise the cases below would see MPI fail, not gridlu's writes."""
     if not _limit_ok:
-        _limit_ok.append(run_limited(LIMIT_BLOCKS, "demo", "--n", 64, "--rhs", 1))
+        _limit_ok.append(run_limited(LIMIT_BLOCKS, "demo", "random", "--n", 64, "--rhs", 1))
     run = _limit_ok[0]
     c.require(run.code == 0, f"under the file-size limit even a demo fails: {run.describe()}")
 

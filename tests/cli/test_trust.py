@@ -669,7 +669,7 @@ with suite.case("--refine on a row-scaled float64 system (n=120, rows x 10^[-8, 
 with suite.case("demo --n 300 --rhs 2 on 2 ranks: the same figures in its report and on "
                 "stdout") as c:
     report = c.dir / "d.json"
-    run = suite.run("demo", "--n", 300, "--rhs", 2, "--report", report, ranks=2)
+    run = suite.run("demo", "random", "--n", 300, "--rhs", 2, "--report", report, ranks=2)
     c.succeeded(run)
     r = load(report)
     keys = ["unit_roundoff", "normwise_backward_error", "normwise_backward_errors",
