@@ -31,7 +31,7 @@ public:
   explicit surface(const std::vector<std::array<point, 3>>& triangles, std::string name = {});
   index_t size() const { return static_cast<index_t>(panels_.size()); }
   const panel& operator[](index_t j) const { return panels_[static_cast<std::size_t>(j)]; }
-  double area() const;              // sum of the panels' areas
+  double area() const;                               // sum of the panels' areas
   const std::string& name() const { return name_; }  // "sphere of radius 1, 1280 panels"
 
 private:

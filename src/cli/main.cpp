@@ -13,10 +13,10 @@
 #include <fstream>
 #include <functional>
 #include <map>
-#include <numbers>
 #include <memory>
 #include <new>
 #include <nlohmann/json.hpp>
+#include <numbers>
 
 #include "gridlu/io.hpp"
 #include "gridlu/version.hpp"
@@ -453,13 +453,13 @@ void print_conductor_answer(const workflows::conductor_options& o,
         "  answer     mean density %.6g%+.6gi against k / (exp(ikR) sin kR) = %.6g%+.6gi: "
         "off by %.2f %%\n",
         r.computed.real(), r.computed.imag(), r.expected.real(), r.expected.imag(), 100 * off);
-    std::printf("             kR = %.4g; the interior resonances sin kR = 0 lie at kR = %.4g, %.4g, ...\n",
-                o.wavenumber * o.size, std::numbers::pi, 2 * std::numbers::pi);
+    std::printf(
+        "             kR = %.4g; the interior resonances sin kR = 0 lie at kR = %.4g, %.4g, ...\n",
+        o.wavenumber * o.size, std::numbers::pi, 2 * std::numbers::pi);
     return;
   }
-  const char* source = o.problem == "cube"
-                           ? "4 pi a x 0.66067813 (Hwang & Mascagni 2004)"
-                           : "4 pi R (textbook electrostatics)";
+  const char* source = o.problem == "cube" ? "4 pi a x 0.66067813 (Hwang & Mascagni 2004)"
+                                           : "4 pi R (textbook electrostatics)";
   std::printf("  answer     capacitance %.8g against %s = %.8g: %+.2f %%\n", r.computed.real(),
               source, r.expected.real(), 100 * (r.computed.real() / r.expected.real() - 1));
 }
@@ -556,19 +556,18 @@ void add_conductor_options(CLI::App* cmd, workflows::conductor_options& o,
 
 // Options demo takes that its problem does not use.
 void refuse_foreign_options(const CLI::App* cmd, const std::string& problem) {
-  const std::pair<const char*, bool> used[] = {
-      {"--n", problem == "random"},
-      {"--rhs", problem == "random"},
-      {"--seed", problem == "random"},
-      {"--subdivisions", problem.starts_with("sphere")},
-      {"--radius", problem.starts_with("sphere")},
-      {"--divisions", problem == "cube"},
-      {"--side", problem == "cube"},
-      {"--wavenumber", problem == "sphere-helmholtz"}};
+  const std::pair<const char*, bool> used[] = {{"--n", problem == "random"},
+                                               {"--rhs", problem == "random"},
+                                               {"--seed", problem == "random"},
+                                               {"--subdivisions", problem.starts_with("sphere")},
+                                               {"--radius", problem.starts_with("sphere")},
+                                               {"--divisions", problem == "cube"},
+                                               {"--side", problem == "cube"},
+                                               {"--wavenumber", problem == "sphere-helmholtz"}};
   for (const auto& [name, fits] : used)
     if (!fits && cmd->count(name) > 0)
-      throw error(error_kind::usage, std::string(name) + " does not apply to the " + problem +
-                                         " problem");
+      throw error(error_kind::usage,
+                  std::string(name) + " does not apply to the " + problem + " problem");
 }
 
 subcommand add_demo(CLI::App& app, double) {

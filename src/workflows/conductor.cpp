@@ -37,8 +37,8 @@ precision precision_named(const std::string& name) {
 
 void require_conductor(const conductor_options& o) {
   if (!is_conductor(o.problem))
-    throw error(error_kind::usage, "unknown conductor problem '" + o.problem +
-                                       "' (sphere, cube or sphere-helmholtz)");
+    throw error(error_kind::usage,
+                "unknown conductor problem '" + o.problem + "' (sphere, cube or sphere-helmholtz)");
   if (!(o.size > 0) || !std::isfinite(o.size))
     throw error(error_kind::usage, "the radius or side must be a positive number");
   if (is_helmholtz(o) && (!(o.wavenumber > 0) || !std::isfinite(o.wavenumber)))
@@ -53,11 +53,12 @@ conductor_result solve_conductor(const process_grid& grid, const conductor_optio
   const index_t n = p.size();
   r.block = block_for(o.block, n, default_block);
   // The factorization keeps A beside its factors (two copies; 1.5 with mixed precision).
-  require_memory(grid,
-                 solve_model(grid, n, 1, r.block, sizeof(T), o.lookahead, o.precision,
-                             o.precision == "double"),
-                 o.memory_per_rank,
-                 described("conductor system", std::string(scalar_traits<T>::name), n, grid, "demo"));
+  require_memory(
+      grid,
+      solve_model(grid, n, 1, r.block, sizeof(T), o.lookahead, o.precision,
+                  o.precision == "double"),
+      o.memory_per_rank,
+      described("conductor system", std::string(scalar_traits<T>::name), n, grid, "demo"));
   dist_matrix<T> a(grid, n, n, r.block), b(grid, n, 1, r.block), x(grid, n, 1, r.block);
   r.assemble_seconds = timed(grid, [&] {
     bem::assemble(p, a);
@@ -81,8 +82,9 @@ conductor_result solve_conductor(const process_grid& grid, const conductor_optio
 }
 
 // What a written conductor system is and how to make it again.
-std::vector<std::pair<const char*, io::attribute>> conductor_attributes(
-    const conductor_options& o, const bem::problem& p, const std::string& type) {
+std::vector<std::pair<const char*, io::attribute>> conductor_attributes(const conductor_options& o,
+                                                                        const bem::problem& p,
+                                                                        const std::string& type) {
   const auto expected = conductor_expected(o);
   std::vector<std::pair<const char*, io::attribute>> attrs = {
       {"gridlu_kind", std::string("system")},
@@ -127,7 +129,8 @@ bool is_conductor(const std::string& name) {
 bem::problem conductor_problem(const conductor_options& o) {
   require_conductor(o);
   bem::problem p;
-  p.mesh = o.problem == "cube" ? bem::cube(o.divisions, o.size) : bem::sphere(o.subdivisions, o.size);
+  p.mesh =
+      o.problem == "cube" ? bem::cube(o.divisions, o.size) : bem::sphere(o.subdivisions, o.size);
   if (is_helmholtz(o)) p.wavenumber = o.wavenumber;
   return p;
 }
@@ -175,7 +178,8 @@ void generate_conductor_file(const process_grid& grid, const conductor_options& 
       f.write("A", a);
       f.write("B", b, true);
       write_panels(grid, p.mesh, block, f);
-      for (const auto& [key, value] : conductor_attributes(o, p, type)) f.set_attribute("/", key, value);
+      for (const auto& [key, value] : conductor_attributes(o, p, type))
+        f.set_attribute("/", key, value);
       f.close();
     }
     out.commit();

@@ -23,6 +23,18 @@ std::vector<T> lapack_solve(std::vector<T> a, std::vector<T> b, index_t n, index
 }
 
 // max |ours - ref| / max |ref| over all entries.
+// Largest column sum (p = 1) or row sum (p = inf) of a gathered column-major n x n matrix.
+template <class T>
+double gathered_norm(const std::vector<T>& a, index_t n, bool columns) {
+  double best = 0;
+  for (index_t k = 0; k < n; ++k) {
+    double s = 0;
+    for (index_t l = 0; l < n; ++l) s += std::abs(columns ? a[l + k * n] : a[k + l * n]);
+    best = std::max(best, s);
+  }
+  return best;
+}
+
 template <class T>
 double relative_difference(const std::vector<T>& ours, const std::vector<T>& ref) {
   double diff = 0, size = 0;

@@ -27,18 +27,6 @@ T random_system_entry(index_t i, index_t j) {
   return random_entry<T>(11, i, j);
 }
 
-// Largest column sum (p = 1) or row sum (p = inf) of a gathered column-major n x n matrix.
-template <class T>
-double gathered_norm(const std::vector<T>& a, index_t n, bool columns) {
-  double best = 0;
-  for (index_t k = 0; k < n; ++k) {
-    double s = 0;
-    for (index_t l = 0; l < n; ++l) s += std::abs(columns ? a[l + k * n] : a[k + l * n]);
-    best = std::max(best, s);
-  }
-  return best;
-}
-
 TYPED_TEST(Accuracy, MatrixFiguresMatchTheGatheredMatrix) {
   using T = TypeParam;
   for (const auto shape : shapes_for_world()) {

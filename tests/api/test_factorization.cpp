@@ -70,17 +70,8 @@ double lapack_condition_inf(const std::vector<T>& a0, index_t n, solve_with with
   std::vector<T> identity(static_cast<std::size_t>(n * n), T(0));
   for (index_t i = 0; i < n; ++i) identity[i + i * n] = T(1);
   const auto inverse = lapack_solve(a0, identity, n, n, lapack_op(with));
-  const auto row_sums = [n](const std::vector<T>& m, bool transposed) {
-    double best = 0;
-    for (index_t i = 0; i < n; ++i) {
-      double s = 0;
-      for (index_t j = 0; j < n; ++j) s += std::abs(transposed ? m[j + i * n] : m[i + j * n]);
-      best = std::max(best, s);
-    }
-    return best;
-  };
-  const bool flipped = with != solve_with::a;
-  return row_sums(a0, flipped) * row_sums(inverse, false);
+  // The inf-norm of op(A) is the 1-norm of A when op transposes.
+  return gathered_norm(a0, n, with != solve_with::a) * gathered_norm(inverse, n, false);
 }
 
 // Every system, on every grid shape, with a block size that does not divide n: X as
