@@ -94,6 +94,9 @@ double wtime();
 // This process's rank in, and the size of, the whole job (MPI_COMM_WORLD).
 int world_rank();
 int world_size();
+// The size of any communicator, and a Fortran communicator handle as a C one.
+int size_of(MPI_Comm c);
+MPI_Comm from_fortran(MPI_Fint c);
 // Ends every rank of the job at once with `code`: for failures the ranks cannot agree on.
 [[noreturn]] void abort_job(int code);
 // How many ranks of c share this rank's node (and so its memory). Collective.

@@ -77,12 +77,9 @@ auto with_type(gridlu_type type, F&& f) {
   throw error(error_kind::usage, "unknown type " + std::to_string(static_cast<int>(type)));
 }
 
-// The one place this layer meets MPI itself: the communicator's size for the default shape.
 grid_shape shape_for(MPI_Comm comm, int p, int q) {
   if (p != 0 || q != 0) return {p, q};
-  int size = 0;
-  MPI_Comm_size(comm, &size);
-  return square_grid_shape(size);
+  return square_grid_shape(comm::size_of(comm));
 }
 
 int create_grid(MPI_Comm comm, int p, int q, gridlu_grid** grid) {
@@ -175,7 +172,7 @@ int gridlu_grid_create(MPI_Comm comm, int p, int q, gridlu_grid** grid) {
 }
 
 int gridlu_grid_create_f(MPI_Fint comm, int p, int q, gridlu_grid** grid) {
-  return create_grid(MPI_Comm_f2c(comm), p, q, grid);
+  return create_grid(comm::from_fortran(comm), p, q, grid);
 }
 
 int gridlu_grid_shape(const gridlu_grid* grid, int* p, int* q, int* myrow, int* mycol) {

@@ -171,11 +171,15 @@ int world_rank() {
   return rank;
 }
 
-int world_size() {
+int world_size() { return size_of(MPI_COMM_WORLD); }
+
+int size_of(MPI_Comm c) {
   int size = 0;
-  MPI_Comm_size(MPI_COMM_WORLD, &size);
+  MPI_Comm_size(c, &size);
   return size;
 }
+
+MPI_Comm from_fortran(MPI_Fint c) { return MPI_Comm_f2c(c); }
 
 int ranks_on_node(const communicator& c) {
   MPI_Comm node = MPI_COMM_NULL;

@@ -137,7 +137,7 @@ with suite.case("demo sphere-helmholtz: flagged at the discrete resonance, not b
             cond[k] = helmholtz_demo(c, k, f"k{len(cond)}")["condition_estimate_inf"]
         return cond[k]
 
-    for _ in range(14):
+    for _ in range(10):
         k1, k2 = hi - ratio * (hi - lo), lo + ratio * (hi - lo)
         lo, hi = (lo, k2) if condition(k1) > condition(k2) else (k1, hi)
     peak = max(cond, key=cond.get)
