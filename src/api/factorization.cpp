@@ -5,6 +5,7 @@
 #include <utility>
 
 #include "comm/collectives.hpp"
+#include "factor/numerical.hpp"
 #include "gridlu/checkpoint.hpp"
 #include "gridlu/io.hpp"
 #include "instantiate.hpp"
@@ -188,10 +189,7 @@ struct factorization<T>::state {
       working.emplace(a);
     }
     lu = factor_with(*working, std::move(start), options, ck);
-    if (lu.first_zero_pivot >= 0)
-      throw error(error_kind::numerical, "A is exactly singular: the pivot of column " +
-                                             std::to_string(lu.first_zero_pivot) +
-                                             " (0-based) is zero");
+    refuse_singular(lu);
   }
 
   void give_way(const std::string& why, checkpointing* ck) {
@@ -266,10 +264,7 @@ void factorization<T>::solve(dist_matrix<T>& x, solve_with with) const {
     }
   }
   if (s_->working) gridlu::solve(*s_->working, s_->lu.pivots, x, with);
-  if (const auto at = first_nonfinite(x))
-    throw error(error_kind::numerical,
-                "X(" + std::to_string(at->first) + ", " + std::to_string(at->second) +
-                    ") is not finite: A is numerically singular or badly scaled");
+  refuse_nonfinite_solution(x, false);
 }
 
 template <scalar T>

@@ -12,7 +12,7 @@
 #include "io/staged.hpp"
 #include "kernels/blas.hpp"
 #include "workflows/dispatch.hpp"
-#include "workflows/numerical.hpp"
+#include "factor/numerical.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 

@@ -13,7 +13,7 @@
 #include "gridlu/version.hpp"
 #include "io/staged.hpp"
 #include "workflows/budget.hpp"
-#include "workflows/numerical.hpp"
+#include "factor/numerical.hpp"
 #include "workflows/stop.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"

@@ -1,5 +1,6 @@
-// The two numerical failures every solving workflow refuses before it reports or writes
-// anything: an exactly singular A and a solution that is not finite.
+// The two numerical failures every solving path (the command's workflows, the library's
+// factorization) refuses before it reports or writes anything: an exactly singular A and
+// a solution that is not finite.
 #pragma once
 
 #include <string>
@@ -7,13 +8,13 @@
 
 #include "gridlu/lu.hpp"
 
-namespace gridlu::workflows {
+namespace gridlu {
 
 inline void refuse_singular(const lu_result& lu) {
   if (lu.first_zero_pivot >= 0)
     throw error(error_kind::numerical, "A is exactly singular: the pivot of column " +
                                            std::to_string(lu.first_zero_pivot) +
-                                           " (0-based) is zero; no solution written");
+                                           " (0-based) is zero; no solution");
 }
 
 // An entry as the file's reader names it, 0-based: NAME[i, j], or NAME[i] for a vector.
@@ -29,7 +30,7 @@ void refuse_nonfinite_solution(const dist_matrix<T>& x, bool one_d) {
     throw error(error_kind::numerical,
                 entry_name("X", *at, one_d) +
                     " is not finite (NaN or Inf): the solve overflowed, A being numerically "
-                    "singular or badly scaled; no solution written");
+                    "singular or badly scaled; no solution");
 }
 
-}  // namespace gridlu::workflows
+}  // namespace gridlu
