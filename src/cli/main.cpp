@@ -22,6 +22,7 @@
 #include "gridlu/version.hpp"
 #include "io/staged.hpp"
 #include "kernels/blas.hpp"
+#include "workflows/calibrate.hpp"
 #include "workflows/job.hpp"
 #include "workflows/stop.hpp"
 #include "workflows/timing.hpp"
@@ -169,11 +170,11 @@ void write_report(const process_grid& g, const std::string& path, nlohmann::json
   io::write_whole_file(path, j.dump(2) + "\n", policy);
 }
 
-void print_phases(const lu_phases& p) {
+void print_phases(const lu_phases& p, const char* whose = "slowest rank") {
   std::printf(
-      "  phases (s, slowest rank): panel %.3f (pivot search %.3f) | interchanges %.3f |"
+      "  phases (s, %s): panel %.3f (pivot search %.3f) | interchanges %.3f |"
       " broadcasts %.3f | trsm %.3f | gemm %.3f | waiting for panels %.3f\n",
-      p.panel, p.pivot_search, p.interchange, p.broadcast, p.trsm, p.gemm, p.wait);
+      whose, p.panel, p.pivot_search, p.interchange, p.broadcast, p.trsm, p.gemm, p.wait);
 }
 
 // Progress of the factorization on stderr, from rank 0, at most once a second; on a
@@ -181,11 +182,10 @@ void print_phases(const lu_phases& p) {
 workflows::progress_callback progress_printer() {
   const bool terminal = isatty(fileno(stderr));
   auto last = std::make_shared<double>(-1.0);
-  return [=](double fraction, double seconds, double gflops) {
+  return [=](double fraction, double seconds, double gflops, double left) {
     const bool done = fraction >= 1.0;
     if (!done && seconds - *last < 1.0) return;
     *last = seconds;
-    const double left = fraction > 0 ? seconds * (1.0 - fraction) / fraction : 0.0;
     std::fprintf(stderr,
                  "%sfactorization %5.1f %%  elapsed %6.0f s  left ~%6.0f s  %7.2f GFLOP/s%s",
                  terminal ? "\r" : "", 100.0 * fraction, seconds, left, gflops,
@@ -919,6 +919,188 @@ subcommand add_info(CLI::App& app, double) {
           }};
 }
 
+void print_calibration(const workflows::calibration& cal) {
+  std::printf("gridlu calibrate: %s\n", cal.source.c_str());
+  for (const auto& [type, r] : cal.types)
+    std::printf(
+        "  %-10s  GEMM %7.2f GFLOP/s per rank (best), %7.2f at 4096 x 224 | panel LU %6.2f at "
+        "4096 x 224 | triangular solve %6.2f at k = 224 | interchanges %.2f ns per entry\n",
+        type.c_str(), r.gemm.best(), r.gemm.gflops_at(4096, 224), r.panel.gflops_at(4096, 224),
+        r.trsm.gflops_at(2048, 224), r.swap_seconds * 1e9);
+  const auto link = [](const char* what, const workflows::link_cost& l) {
+    std::printf("  %-17s latency %8.2f us, bandwidth %8.2f GB/s\n", what, l.latency * 1e6,
+                l.bandwidth * 1e-9);
+  };
+  link("point to point", cal.point_to_point);
+  link("row broadcast", cal.row_broadcast);
+  link("column broadcast", cal.column_broadcast);
+  std::printf("  checkpoint writes %8.1f MB/s (all ranks together, synced to disk)\n",
+              cal.write_bandwidth * 1e-6);
+}
+
+struct calibrate_command {
+  workflows::calibrate_options options;
+  std::string out;
+  bool force = false;
+};
+
+subcommand add_calibrate(CLI::App& app, double) {
+  auto c = std::make_shared<common_options>();
+  auto o = std::make_shared<calibrate_command>();
+  auto* cmd = app.add_subcommand(
+      "calibrate", "measure the rates of the performance model on these ranks (for gridlu plan)");
+  cmd->add_option("--type", o->options.types, "element types to measure (default: all four)")
+      ->check(CLI::IsMember({"float32", "float64", "complex64", "complex128"}));
+  cmd->add_option("--checkpoint-dir", o->options.checkpoint_dir,
+                  "directory whose write bandwidth is measured (a scratch file, removed)")
+      ->capture_default_str();
+  cmd->add_option_function<std::string>(
+      "--write-size",
+      [o](const std::string& text) { o->options.write_bytes = workflows::parse_size(text); },
+      "bytes written to measure it, all ranks together (default 256M)");
+  cmd->add_option("--out", o->out, "write the calibration as JSON to this file");
+  cmd->add_flag("--force", o->force, "replace --out if it exists");
+  add_common(cmd, *c);
+  cmd->footer(
+      "Run it with one rank per core on the nodes a solve will use, then pass the file to\n"
+      "gridlu plan --calibration. Example:\n  mpiexec -n 2 gridlu calibrate --out rates.json");
+  return {cmd, [=] {
+            const auto policy = o->force ? io::existing::replace : io::existing::refuse;
+            if (!o->out.empty()) io::check_output_target(o->out, policy);
+            const auto grid = make_grid(*c);
+            const auto cal = workflows::calibrate(grid, o->options);
+            if (grid.rank() != 0) return 0;
+            if (!c->quiet) print_calibration(cal);
+            if (!o->out.empty()) io::write_whole_file(o->out, cal.json().dump(2) + "\n", policy);
+            return 0;
+          }};
+}
+
+std::string gigabytes(double bytes) {
+  char text[32];
+  std::snprintf(text, sizeof text, "%.2f GB", bytes * 1e-9);
+  return text;
+}
+
+std::string hours(double seconds) {
+  char text[48];
+  std::snprintf(text, sizeof text, "%.0f s (%.2f h)", seconds, seconds / 3600);
+  return text;
+}
+
+void print_plan(const workflows::plan_result& r) {
+  const auto& o = r.asked;
+  const auto& best = r.chosen();
+  std::printf("gridlu plan: LU of a %s matrix, n = %lld, on %d node(s) x %d core(s) = %d ranks\n",
+              o.type.c_str(), static_cast<long long>(o.n), o.nodes, o.cores_per_node, r.ranks);
+  std::printf("  rates        %s\n", r.calibration_source.c_str());
+  std::printf("  memory       %s per rank of %s: %s (matrices %s, panels %s, I/O buffers %s)\n",
+              gigabytes(r.memory_per_rank).c_str(),
+              gigabytes(o.memory_per_node / o.cores_per_node).c_str(),
+              r.fits ? "fits" : "does NOT fit", gigabytes(r.memory.matrices).c_str(),
+              gigabytes(r.memory.panels).c_str(), gigabytes(r.memory.io).c_str());
+  std::printf("  checkpoint   %s each, %s of disk while the next is written, %.0f s to write\n",
+              gigabytes(r.checkpoint_bytes).c_str(), gigabytes(r.checkpoint_disk_bytes).c_str(),
+              r.checkpoint_write_seconds);
+  std::printf(
+      "  choice       grid %dx%d, block %lld, look-ahead %d: %s, %.2f GFLOP/s, %.0f %% of "
+      "the GEMM rate\n",
+      best.grid.p, best.grid.q, static_cast<long long>(best.block), o.lookahead,
+      hours(best.predicted.seconds).c_str(), best.predicted.gflops,
+      100 * best.predicted.efficiency);
+  print_phases(best.predicted.phases, "predicted, a typical rank");
+  if (r.checkpoint_interval > 0)
+    std::printf(
+        "  interval     a checkpoint every %s of work for an MTBF of %.4g h (Young 1974, "
+        "Daly 2006): expected wall time %s\n",
+        hours(r.checkpoint_interval).c_str(), o.mtbf_hours, hours(r.expected_seconds).c_str());
+  else
+    std::printf(
+        "  interval     no --mtbf given: checkpoint only before the time limit; "
+        "expected wall time %s\n",
+        hours(r.expected_seconds).c_str());
+  std::printf("  considered   (fastest first that fit)\n");
+  const std::size_t shown = std::min<std::size_t>(r.candidates.size(), 8);
+  for (std::size_t i = 0; i < shown; ++i) {
+    const auto& x = r.candidates[i];
+    std::printf("    grid %5dx%-5d block %4lld  %12.1f s  %5.1f %%\n", x.grid.p, x.grid.q,
+                static_cast<long long>(x.block), x.predicted.seconds, 100 * x.predicted.efficiency);
+  }
+  if (r.candidates.size() > shown)
+    std::printf("    ... and %zu more (--json lists all)\n", r.candidates.size() - shown);
+  std::printf(
+      "  note         a model's estimate: the time of the factorization alone, without reading "
+      "A or writing X\n");
+}
+
+workflows::calibration calibration_from(const std::string& path) {
+  if (path.empty()) return workflows::builtin_calibration();
+  std::ifstream in(path);
+  if (!in) throw error(error_kind::input, "cannot read the calibration " + path);
+  try {
+    auto c = workflows::calibration::from_json(nlohmann::json::parse(in));
+    c.source = "from " + path + ", " + c.source;
+    return c;
+  } catch (const nlohmann::json::exception& e) {
+    throw error(error_kind::input, path + " is not JSON: " + e.what());
+  } catch (const gridlu::error& e) {
+    throw error(error_kind::input, path + ": " + e.what());
+  }
+}
+
+struct plan_command {
+  workflows::plan_options options;
+  std::string grid, calibration;
+  bool json = false;
+};
+
+subcommand add_plan(CLI::App& app, double) {
+  auto o = std::make_shared<plan_command>();
+  auto& p = o->options;
+  auto* cmd = app.add_subcommand(
+      "plan", "predict memory, disk, grid, block size, time and checkpoint interval of a solve");
+  cmd->add_option("--n", p.n, "order of the matrix")->required();
+  cmd->add_option("--type", p.type, "float32, float64, complex64 or complex128")
+      ->capture_default_str();
+  cmd->add_option("--nodes", p.nodes, "nodes of the allocation")->required();
+  cmd->add_option("--cores-per-node", p.cores_per_node, "cores per node: one rank each")
+      ->required();
+  cmd->add_option_function<std::string>(
+         "--mem-per-node",
+         [o](const std::string& text) {
+           const bool plain = text.find_first_not_of("0123456789.") == std::string::npos;
+           o->options.memory_per_node =
+               static_cast<double>(workflows::parse_size(plain ? text + "GiB" : text));
+         },
+         "memory per node: GiB, or a size such as 256G or 180GB")
+      ->required();
+  cmd->add_option("--rhs", p.nrhs, "number of right-hand sides")->capture_default_str();
+  add_precision(cmd, p.precision, "double");
+  cmd->add_option("--calibration", o->calibration,
+                  "rates from gridlu calibrate (default: built-in, measured on the development "
+                  "machines)");
+  cmd->add_option("--mtbf", p.mtbf_hours, "mean time between failures of the allocation, hours");
+  cmd->add_option("--grid", o->grid, "only this grid PxQ (default: every grid of the ranks)");
+  cmd->add_option("--block", p.block, "only this block size (default: several)")
+      ->check(positive_block);
+  add_lookahead(cmd, p.lookahead);
+  cmd->add_flag("--json", o->json, "print the plan as JSON instead");
+  cmd->footer(
+      "Example:\n  gridlu plan --n 200000 --type complex128 --nodes 16 "
+      "--cores-per-node 64 --mem-per-node 256 --mtbf 24");
+  return {cmd, [=] {
+            auto options = o->options;
+            if (!o->grid.empty()) options.grid = parse_grid_shape(o->grid);
+            const auto r = workflows::plan(options, calibration_from(o->calibration));
+            if (comm::world_rank() != 0) return 0;
+            if (o->json)
+              std::printf("%s\n", r.json().dump(2).c_str());
+            else
+              print_plan(r);
+            return 0;
+          }};
+}
+
 }  // namespace
 
 // Runs in place of unwinding for an exception that only this rank has (nothing catches
@@ -970,9 +1152,10 @@ int main(int argc, char** argv) {
     return "gridlu: error: " + std::string(e.what()) + " (see --help)\n";
   });
   app.require_subcommand(1);
-  const subcommand commands[] = {add_bench(app, started),  add_demo(app, started),
-                                 add_solve(app, started),  add_generate(app, started),
-                                 add_resume(app, started), add_info(app, started)};
+  const subcommand commands[] = {add_bench(app, started),     add_demo(app, started),
+                                 add_solve(app, started),     add_generate(app, started),
+                                 add_resume(app, started),    add_info(app, started),
+                                 add_calibrate(app, started), add_plan(app, started)};
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {

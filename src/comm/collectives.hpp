@@ -73,4 +73,8 @@ template <class T>
 void all_gather(const communicator& c, const T* send, index_t count, T* recv,
                 const std::vector<index_t>& counts);
 
+// Seconds of one trip of a `bytes` message between ranks a and b of c, the mean of
+// `rounds` round trips; the other ranks take no part and return 0.
+double ping_pong(const communicator& c, int a, int b, index_t bytes, int rounds);
+
 }  // namespace gridlu::comm

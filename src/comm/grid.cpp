@@ -217,6 +217,28 @@ std::string library_version() {
 }
 void barrier(const communicator& c) { check(MPI_Barrier(c.get()), "MPI_Barrier"); }
 
+double ping_pong(const communicator& c, int a, int b, index_t bytes, int rounds) {
+  const int me = c.rank();
+  if (me != a && me != b) return 0;
+  const int peer = me == a ? b : a;
+  std::vector<char> message(static_cast<std::size_t>(bytes));
+  const auto send = [&] {
+    check(MPI_Send(message.data(), to_int(bytes), MPI_BYTE, peer, 0, c.get()), "MPI_Send");
+  };
+  const auto receive = [&] {
+    check(MPI_Recv(message.data(), to_int(bytes), MPI_BYTE, peer, 0, c.get(), MPI_STATUS_IGNORE),
+          "MPI_Recv");
+  };
+  const double start = MPI_Wtime();
+  for (int r = 0; r < rounds; ++r) {
+    if (me == a)
+      send(), receive();
+    else
+      receive(), send();
+  }
+  return (MPI_Wtime() - start) / (2.0 * rounds);
+}
+
 template <class T>
 void broadcast(const communicator& c, T* data, index_t count, int root) {
   in_pieces<T>(count, [&](index_t first, index_t n) {

@@ -4,11 +4,13 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <cmath>
 #include <cstdio>
 #include <cstring>
 #include <filesystem>
+#include <vector>
 
 namespace gridlu::io {
 namespace fs = std::filesystem;
@@ -160,6 +162,28 @@ void write_whole_file(const std::string& target, const std::string& content, exi
     remove_staged(directory, path);
     throw;
   }
+}
+
+double timed_write(const std::string& directory, std::int64_t bytes) {
+  const std::string dir =
+      make_private_directory((fs::path(directory) / "x").string(), error_kind::output);
+  const std::string path = (fs::path(dir) / "scratch").string();
+  std::vector<char> chunk(std::size_t{1} << 22, 1);
+  const double start = comm::wtime();
+  const int fd = open(path.c_str(), O_CREAT | O_EXCL | O_WRONLY | O_CLOEXEC, 0600);
+  bool written = fd >= 0;
+  for (std::int64_t left = bytes; written && left > 0;) {
+    const auto n = static_cast<std::size_t>(std::min<std::int64_t>(left, chunk.size()));
+    written = write(fd, chunk.data(), n) == static_cast<ssize_t>(n);
+    left -= static_cast<std::int64_t>(n);
+  }
+  written = written && fsync(fd) == 0;
+  const std::string why = reason();
+  const double seconds = comm::wtime() - start;
+  if (fd >= 0) close(fd);
+  remove_staged(dir, path);
+  if (!written) throw error(error_kind::output, "cannot write in " + directory + ": " + why);
+  return seconds;
 }
 
 void remove_stale_staging(const std::string& directory) noexcept {

@@ -56,4 +56,8 @@ void write_whole_file(const std::string& target, const std::string& content, exi
 // where no other run can be writing, such as a locked checkpoint directory.
 void remove_stale_staging(const std::string& directory) noexcept;
 
+// Seconds this process takes to write `bytes` into a private scratch file in `directory`
+// and sync it to stable storage; the scratch file is removed. Output error if it cannot.
+double timed_write(const std::string& directory, std::int64_t bytes);
+
 }  // namespace gridlu::io

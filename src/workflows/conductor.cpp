@@ -55,7 +55,7 @@ conductor_result solve_conductor(const process_grid& grid, const conductor_optio
   // The factorization keeps A beside its factors (two copies; 1.5 with mixed precision).
   require_memory(
       grid,
-      solve_model(grid, n, 1, r.block, sizeof(T), o.lookahead, o.precision,
+      solve_model(grid.shape(), n, 1, r.block, sizeof(T), o.lookahead, o.precision,
                   o.precision == "double"),
       o.memory_per_rank,
       described("conductor system", std::string(scalar_traits<T>::name), n, grid, "demo"));
@@ -165,7 +165,7 @@ void generate_conductor_file(const process_grid& grid, const conductor_options& 
   with_type(type, [&]<class T>(T) {
     const index_t n = p.size(), block = block_for(o.block, n, default_block);
     // A, then B, the areas and the centroids: five columns.
-    auto model = solve_model(grid, n, 5, block, sizeof(T), -1, "double", false, false);
+    auto model = solve_model(grid.shape(), n, 5, block, sizeof(T), -1, "double", false, false);
     model.vectors = 1;
     require_memory(grid, model, o.memory_per_rank,
                    described("conductor system", type, n, grid, "generate"));

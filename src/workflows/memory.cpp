@@ -145,14 +145,14 @@ index_t block_for(index_t asked, index_t n, index_t fallback) {
   return asked;
 }
 
-memory_model solve_model(const process_grid& grid, index_t n, index_t nrhs, index_t block,
+memory_model solve_model(grid_shape grid, index_t n, index_t nrhs, index_t block,
                          std::int64_t element_bytes, int lookahead, const std::string& precision,
                          bool refine, bool factoring) {
   memory_model m;
   m.n = n;
   m.nrhs = nrhs;
   m.block = block;
-  m.grid = grid.shape();
+  m.grid = grid;
   m.element_bytes = element_bytes;
   m.lookahead = factoring ? lookahead : -1;
   const bool mixed = is_mixed(precision);

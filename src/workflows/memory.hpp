@@ -31,7 +31,7 @@ struct memory_model {
 // refine in the working precision, half of one more for mixed precision's single-precision
 // factors), B, X, a residual (and a correction with refinement or mixed precision, a GMRES
 // basis with mixed-krylov), and the panels of the factorization unless `factoring` is false.
-memory_model solve_model(const process_grid& grid, index_t n, index_t nrhs, index_t block,
+memory_model solve_model(grid_shape grid, index_t n, index_t nrhs, index_t block,
                          std::int64_t element_bytes, int lookahead, const std::string& precision,
                          bool refine, bool factoring = true);
 

@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cmath>
 
+#include "workflows/calibrate.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
@@ -175,6 +176,45 @@ nlohmann::json conductor_result::json(const conductor_options& o) const {
   if (corrections >= 0) j["corrections"] = corrections;
   j.update(trust_json(trust));
   return j;
+}
+
+nlohmann::json plan_result::json() const {
+  const auto grid_json = [](grid_shape g) { return nlohmann::json::array({g.p, g.q}); };
+  auto candidates_json = nlohmann::json::array();
+  for (const auto& c : candidates)
+    candidates_json.push_back({{"grid", grid_json(c.grid)},
+                               {"block", c.block},
+                               {"predicted_seconds", c.predicted.seconds},
+                               {"efficiency", c.predicted.efficiency}});
+  const plan_candidate& best = chosen();
+  return {{"command", "plan"},
+          {"n", asked.n},
+          {"type", asked.type},
+          {"precision", asked.precision},
+          {"nodes", asked.nodes},
+          {"cores_per_node", asked.cores_per_node},
+          {"ranks", ranks},
+          {"calibration", calibration_source},
+          {"memory_per_rank_bytes", memory_per_rank},
+          {"memory_parts_bytes",
+           {{"matrices", memory.matrices}, {"panels", memory.panels}, {"io", memory.io}}},
+          {"memory_available_per_rank_bytes", asked.memory_per_node / asked.cores_per_node},
+          {"fits", fits},
+          {"grid", grid_json(best.grid)},
+          {"block", best.block},
+          {"lookahead", asked.lookahead},
+          {"predicted_seconds", best.predicted.seconds},
+          {"phases", phases_json(best.predicted.phases)},
+          {"gflops", best.predicted.gflops},
+          {"efficiency", best.predicted.efficiency},
+          {"checkpoint_bytes", checkpoint_bytes},
+          {"checkpoint_disk_bytes", checkpoint_disk_bytes},
+          {"checkpoint_write_seconds", checkpoint_write_seconds},
+          {"mtbf_hours", asked.mtbf_hours > 0 ? nlohmann::json(asked.mtbf_hours) : nullptr},
+          {"checkpoint_interval_seconds",
+           checkpoint_interval > 0 ? nlohmann::json(checkpoint_interval) : nullptr},
+          {"expected_seconds", expected_seconds},
+          {"candidates", candidates_json}};
 }
 
 }  // namespace gridlu::workflows

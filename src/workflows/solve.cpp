@@ -6,6 +6,7 @@
 #include <optional>
 #include <utility>
 
+#include "factor/numerical.hpp"
 #include "gridlu/accuracy.hpp"
 #include "gridlu/checkpoint.hpp"
 #include "gridlu/io.hpp"
@@ -13,7 +14,7 @@
 #include "gridlu/version.hpp"
 #include "io/staged.hpp"
 #include "workflows/budget.hpp"
-#include "factor/numerical.hpp"
+#include "workflows/model.hpp"
 #include "workflows/stop.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
@@ -294,6 +295,24 @@ void write_factors(const process_grid& grid, const job& j, const dist_matrix<T>&
 // The factorization, with checkpoints when the job has a directory: periodic ones, and
 // a last one before stopping on a signal or when the time budget would run out.
 
+// The seconds a factorization has left: the model's time for the remaining steps, scaled
+// by how this run's steps so far compare with the model's time for them.
+class pace {
+public:
+  pace(grid_shape grid, const job& j, index_t start)
+      : model_(predict(builtin_calibration(),
+                       {j.n, j.type, grid, j.block, static_cast<int>(j.lookahead)})),
+        start_(model_.remaining(start)) {}
+  double left(index_t done, double seconds) const {
+    const double rest = model_.remaining(done), modelled = start_ - rest;
+    return modelled > 0 ? rest * seconds / modelled : rest;
+  }
+
+private:
+  prediction model_;
+  double start_;
+};
+
 struct checkpointing {
   const checkpoint::directory& dir;
   checkpoint::progress done;  // of the earlier runs, then updated
@@ -313,6 +332,7 @@ public:
     before_ = ck_ ? ck_->done.elapsed_seconds : 0.0;
     save_estimate_ = budget::first_save_estimate(static_cast<double>(n) * n * sizeof(T));
     start_ = last_save_ = comm::wtime();
+    if (run_.progress) pace_.emplace(grid_.shape(), job_, lu.columns_done);
     lu_options lo;
     lo.lookahead = static_cast<int>(job_.lookahead);
     lo.after_step = [&](const lu_result& state) { return after_step(state); };
@@ -370,7 +390,8 @@ private:
     if (run_.progress) {
       const double flops = total_ - remaining(state.columns_done) - done_before_;
       run_.progress(1.0 - remaining(state.columns_done) / total_, seconds,
-                    seconds > 0 ? flops / seconds * 1e-9 : 0.0);
+                    seconds > 0 ? flops / seconds * 1e-9 : 0.0,
+                    pace_->left(state.columns_done, seconds));
     }
     const std::int64_t flags = requests(state, now);
     if (!over_at_first_step_) over_at_first_step_ = (flags & budget_flag) != 0;
@@ -393,6 +414,7 @@ private:
   double done_before_ = 0, before_ = 0, save_estimate_ = 0, start_ = 0, last_save_ = 0;
   index_t saved_at_ = -1;
   std::optional<bool> over_at_first_step_;  // the budget was exceeded at the first step
+  std::optional<pace> pace_;                // for the progress line's estimate
 };
 
 // What asked this rank to stop, if it was this rank that was asked.
@@ -679,8 +701,9 @@ private:
 // read; checked on every rank before A is allocated.
 void require_job_memory(const process_grid& grid, const job& j, const run_settings& run) {
   const auto bytes = static_cast<std::int64_t>(element_bytes(j.type));
-  const auto model = solve_model(grid, j.n, j.nrhs, j.block, bytes, static_cast<int>(j.lookahead),
-                                 j.precision, j.refine, j.factors.empty());
+  const auto model =
+      solve_model(grid.shape(), j.n, j.nrhs, j.block, bytes, static_cast<int>(j.lookahead),
+                  j.precision, j.refine, j.factors.empty());
   require_memory(grid, model, run.memory_per_rank,
                  "a " + j.type + " system of order " + std::to_string(j.n) + " (grid " +
                      std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols()) + ")");

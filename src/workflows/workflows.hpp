@@ -167,8 +167,10 @@ conductor_result conductor_demo(const process_grid& grid, const conductor_option
 // centroids, and what the system is (attributes, the entry error among them).
 void generate_conductor_file(const process_grid& grid, const conductor_options& options);
 
-// Progress of a factorization: fraction of its flops done, seconds so far, GFLOP/s so far.
-using progress_callback = std::function<void(double fraction, double seconds, double gflops)>;
+// Progress of a factorization: fraction of its flops done, seconds so far, GFLOP/s so far,
+// and an estimate of the seconds left.
+using progress_callback =
+    std::function<void(double fraction, double seconds, double gflops, double left)>;
 // Something the user should know at once (what --force discards, for instance).
 using notice_callback = std::function<void(const std::string&)>;
 

@@ -1,0 +1,216 @@
+// `gridlu calibrate`: the rates of the performance model, measured on the ranks of the
+// run, every rank at once where the factorization would run them at once.
+#include <unistd.h>
+
+#include <algorithm>
+#include <ctime>
+#include <random>
+
+#include "comm/collectives.hpp"
+#include "factor/interchange.hpp"
+#include "io/staged.hpp"
+#include "kernels/blas.hpp"
+#include "workflows/calibrate.hpp"
+#include "workflows/dispatch.hpp"
+
+namespace gridlu::workflows {
+namespace {
+
+// The shapes measured: rows and k span the blocks and local sizes of real runs; beyond
+// them the model holds the rate of the nearest sample.
+constexpr index_t sample_rows[] = {128, 256, 512, 1024, 2048, 4096};
+constexpr index_t panel_rows[] = {256, 1024, 4096, 16384};
+constexpr index_t sample_k[] = {32, 64, 128, 256, 384};
+constexpr index_t trsm_columns = 2048;
+
+// The slowest rank's rate of `call` (flops each), repeated for at least 20 ms after a
+// warm-up call; `prepare` runs untimed before each call.
+template <class Prepare, class Call>
+double rate_of(const process_grid& grid, double flops, Prepare&& prepare, Call&& call) {
+  prepare();
+  call();
+  comm::barrier(grid.all());
+  double busy = 0;
+  int calls = 0;
+  while (calls < 2 || busy < 0.02) {
+    prepare();
+    const double start = comm::wtime();
+    call();
+    busy += comm::wtime() - start;
+    ++calls;
+  }
+  double gflops = flops * calls / busy * 1e-9;
+  comm::min(grid.all(), &gflops, 1);
+  return gflops;
+}
+
+template <scalar T>
+std::vector<T> random_entries(index_t count, std::uint64_t seed) {
+  std::vector<T> v(static_cast<std::size_t>(count));
+  std::mt19937_64 g(seed);
+  std::uniform_real_distribution<real_t<T>> u(-1, 1);
+  for (auto& x : v) {
+    if constexpr (scalar_traits<T>::is_complex)
+      x = T(u(g), u(g));
+    else
+      x = u(g);
+  }
+  return v;
+}
+
+template <scalar T>
+double flops_of(double real_flops) {
+  return scalar_traits<T>::is_complex ? 4 * real_flops : real_flops;
+}
+
+template <scalar T>
+rate_table gemm_rates(const process_grid& grid) {
+  std::vector<rate_sample> t;
+  for (const index_t k : sample_k)
+    for (const index_t m : sample_rows) {
+      const index_t n = std::min(m, trsm_columns);
+      const auto a = random_entries<T>(m * k, 1), b = random_entries<T>(k * n, 2);
+      auto c = random_entries<T>(m * n, 3);
+      const double f = flops_of<T>(2.0 * m * n * k);
+      t.push_back({m, k,
+                   rate_of(
+                       grid, f, [] {},
+                       [&] {
+                         blas::gemm(blas::op::none, blas::op::none, m, n, k, T(-1), a.data(), m,
+                                    b.data(), k, T(1), c.data(), m);
+                       })});
+    }
+  return rate_table(std::move(t));
+}
+
+template <scalar T>
+rate_table trsm_rates(const process_grid& grid) {
+  std::vector<rate_sample> t;
+  for (const index_t k : sample_k) {
+    auto l = random_entries<T>(k * k, 4);
+    for (index_t i = 0; i < k; ++i) l[static_cast<std::size_t>(i * k + i)] = T(k);
+    const auto b0 = random_entries<T>(k * trsm_columns, 5);
+    auto b = b0;
+    const double f = flops_of<T>(1.0 * k * k * trsm_columns);
+    t.push_back({trsm_columns, k,
+                 rate_of(
+                     grid, f, [&] { b = b0; },
+                     [&] {
+                       blas::trsm_left(blas::triangle::lower, blas::diagonal::unit, blas::op::none,
+                                       k, trsm_columns, T(1), l.data(), k, b.data(), k);
+                     })});
+  }
+  return rate_table(std::move(t));
+}
+
+template <scalar T>
+rate_table panel_rates(const process_grid& grid) {
+  std::vector<rate_sample> t;
+  for (const index_t k : sample_k)
+    for (const index_t m : panel_rows) {
+      const auto a0 = random_entries<T>(m * k, 6);
+      auto a = a0;
+      std::vector<std::int32_t> ipiv(static_cast<std::size_t>(k));
+      const double f = flops_of<T>(1.0 * m * k * k - k * k * k / 3.0);
+      t.push_back({m, k,
+                   rate_of(
+                       grid, f, [&] { a = a0; },
+                       [&] { blas::lapack_getrf(m, k, a.data(), m, ipiv.data()); })});
+    }
+  return rate_table(std::move(t));
+}
+
+// Seconds per entry moved by the row interchanges of one panel, within a rank: the
+// factorization's own interchange code on a matrix of this rank alone.
+template <scalar T>
+double swap_seconds(const process_grid& grid) {
+  constexpr index_t rows = 4096, cols = 1024, jb = 128;
+  const process_grid self(MPI_COMM_SELF, {1, 1});
+  dist_matrix<T> a(self, rows, cols, jb);
+  std::mt19937_64 g(7);
+  std::vector<index_t> pivots(jb);
+  for (index_t t = 0; t < jb; ++t)
+    pivots[t] = std::uniform_int_distribution<index_t>(t, rows - 1)(g);
+  const auto plan = detail::plan_interchanges(a.layout().rows, 0, 0, pivots);
+  detail::interchange_buffers<T> buffers;
+  const detail::column_range all{0, cols};
+  const double entries = 2.0 * jb * cols;
+  const double gflops = rate_of(
+      grid, entries, [] {},
+      [&] { detail::interchange_rows(a, plan, std::span(&all, 1), buffers); });
+  return 1e-9 / gflops;
+}
+
+// One step of a broadcast tree over c from the times of a small and a large broadcast,
+// each closed by a barrier whose own time is taken off; the point-to-point figures when
+// c has a single rank.
+link_cost tree_step(const process_grid& grid, const communicator& c, const link_cost& fallback) {
+  double size = c.size();
+  comm::max(grid.all(), &size, 1);  // every rank measures where any can
+  if (size < 2) return fallback;
+  constexpr index_t large = index_t{1} << 22;
+  std::vector<std::int64_t> data(large / 8);
+  const auto time_of = [&](index_t bytes) {
+    const int rounds = bytes > 1024 ? 10 : 200;
+    comm::barrier(grid.all());
+    const double start = comm::wtime();
+    for (int r = 0; r < rounds; ++r) {
+      if (bytes > 0) comm::broadcast(c, data.data(), bytes / 8, 0);
+      comm::barrier(c);
+    }
+    double seconds = (comm::wtime() - start) / rounds;
+    comm::max(grid.all(), &seconds, 1);
+    return seconds;
+  };
+  const double hops = std::ceil(std::log2(size)), barrier = time_of(0);
+  const double small = std::max(time_of(8) - barrier, 0.0), big = time_of(large) - barrier;
+  return {small / hops, static_cast<double>(large) * hops / std::max(big - small, 1e-9)};
+}
+
+link_cost point_to_point(const process_grid& grid) {
+  if (grid.size() < 2) return {};
+  constexpr index_t large = index_t{1} << 22;
+  double t[2] = {comm::ping_pong(grid.all(), 0, 1, 8, 1000),
+                 comm::ping_pong(grid.all(), 0, 1, large, 20)};
+  comm::max(grid.all(), t, 2);
+  return {t[0], static_cast<double>(large) / std::max(t[1] - t[0], 1e-9)};
+}
+
+double write_bandwidth(const process_grid& grid, const std::string& directory, std::int64_t bytes) {
+  const std::int64_t mine = bytes / grid.size();
+  double seconds = 0;
+  comm::together(grid.all(), [&] { seconds = io::timed_write(directory, mine); });
+  comm::max(grid.all(), &seconds, 1);
+  return static_cast<double>(mine * grid.size()) / seconds;
+}
+
+std::string source_of(const process_grid& grid) {
+  char host[256] = {};
+  gethostname(host, sizeof host - 1);
+  char date[32] = {};
+  const std::time_t now = std::time(nullptr);
+  std::strftime(date, sizeof date, "%Y-%m-%d %H:%M UTC", std::gmtime(&now));
+  return std::string("measured on ") + host + ", " + date + ", " + std::to_string(grid.size()) +
+         " rank(s), grid " + std::to_string(grid.prows()) + "x" + std::to_string(grid.pcols());
+}
+
+}  // namespace
+
+calibration calibrate(const process_grid& grid, const calibrate_options& o) {
+  calibration c;
+  c.source = source_of(grid);
+  c.ranks = grid.size();
+  for (const auto& type : o.types)
+    with_type(type, [&]<class T>(T) {
+      c.types.push_back({type,
+                         {gemm_rates<T>(grid), trsm_rates<T>(grid), panel_rates<T>(grid),
+                          swap_seconds<T>(grid)}});
+    });
+  c.point_to_point = point_to_point(grid);
+  c.row_broadcast = tree_step(grid, grid.row(), c.point_to_point);
+  c.column_broadcast = tree_step(grid, grid.col(), c.point_to_point);
+  c.write_bandwidth = write_bandwidth(grid, o.checkpoint_dir, o.write_bytes);
+  return c;
+}
+
+}  // namespace gridlu::workflows
