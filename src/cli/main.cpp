@@ -17,6 +17,7 @@
 #include <new>
 #include <nlohmann/json.hpp>
 #include <numbers>
+#include <sstream>
 
 #include "gridlu/io.hpp"
 #include "gridlu/version.hpp"
@@ -61,7 +62,7 @@ constexpr const char* exit_codes_help =
     "            7 X written but with fewer trusted digits than --require-digits asks.";
 
 struct common_options {
-  std::string grid;  // empty: as square as possible
+  std::string grid;  // empty: the model's choice (make_grid)
   int blas_threads = 1;
   std::string report;
   bool quiet = false, progress = false;
@@ -69,7 +70,10 @@ struct common_options {
 };
 
 void add_common(CLI::App* cmd, common_options& o) {
-  cmd->add_option("--grid", o.grid, "process grid PxQ (default: as square as possible, P <= Q)");
+  cmd->add_option("--grid", o.grid,
+                  "process grid PxQ (default: the one the performance model predicts fastest "
+                  "for the matrix, as gridlu plan shows; as square as possible, P <= Q, where "
+                  "no matrix is factored)");
   cmd->add_option("--blas-threads", o.blas_threads,
                   "BLAS threads per rank (default 1: one rank per core)")
       ->check(CLI::PositiveNumber);
@@ -145,10 +149,65 @@ void add_verbosity(CLI::App* cmd, common_options& o) {
                 "show factorization progress even when stderr is not a terminal");
 }
 
-process_grid make_grid(const common_options& o) {
+// What the performance model needs to choose a grid: the matrix's order (0: not known)
+// and type, the block and the look-ahead.
+struct grid_hint {
+  index_t n = 0;
+  std::string type = "float64";
+  index_t block = 0;
+  int lookahead = workflows::default_lookahead;
+};
+
+// The grid of a run: --grid, or the one the model predicts fastest for the matrix; the
+// squarest one (P <= Q) when the order is not known.
+process_grid make_grid(const common_options& o, const grid_hint& h = {}) {
   blas::set_threads(o.blas_threads);
-  return process_grid(MPI_COMM_WORLD, o.grid.empty() ? square_grid_shape(comm::world_size())
-                                                     : parse_grid_shape(o.grid));
+  const int ranks = comm::world_size();
+  grid_shape shape = square_grid_shape(ranks);
+  if (!o.grid.empty())
+    shape = parse_grid_shape(o.grid);
+  else if (h.n > 0)
+    shape = workflows::model_grid(ranks, h.n, h.type,
+                                  workflows::block_for(h.block, h.n, workflows::default_block),
+                                  h.lookahead);
+  return process_grid(MPI_COMM_WORLD, shape);
+}
+
+// Rank 0's reading of what `read` finds, on every rank; none where it finds nothing or
+// fails (the command then says why, as it would have).
+grid_hint hint_from_rank0(const std::function<grid_hint()>& read) {
+  std::string text;
+  if (comm::world_rank() == 0) try {
+      const grid_hint h = read();
+      if (h.n > 0)
+        text = std::to_string(h.n) + " " + h.type + " " + std::to_string(h.block) + " " +
+               std::to_string(h.lookahead);
+    } catch (const std::exception&) {
+    }
+  const process_grid world(MPI_COMM_WORLD, {1, comm::world_size()});
+  comm::broadcast(world.all(), text, 0);
+  grid_hint h;
+  std::istringstream(text) >> h.n >> h.type >> h.block >> h.lookahead;
+  return h;
+}
+
+grid_hint hint_of_file(const workflows::solve_options& o) {
+  return hint_from_rank0([&] {
+    for (const auto& d : io::describe(o.input).datasets)
+      if (d.path == "/" + o.matrix_dataset && d.shape.usable && d.shape.dims.size() == 2)
+        return grid_hint{d.shape.dims[0], d.shape.type, o.block, o.lookahead};
+    return grid_hint{};
+  });
+}
+
+grid_hint hint_of_job(const workflows::resume_options& o) {
+  return hint_from_rank0([&] {
+    std::ifstream in(std::filesystem::path(o.dir) / "job.json");
+    const std::string text((std::istreambuf_iterator<char>(in)), {});
+    const auto j = workflows::job_from_json(text, o.dir);
+    return grid_hint{j.n, j.type, o.block > 0 ? o.block : j.block,
+                     o.lookahead >= 0 ? o.lookahead : static_cast<int>(j.lookahead)};
+  });
 }
 
 // The report: the result's own figures, the grid and the versions of everything that
@@ -398,7 +457,7 @@ void print_mixed_bench(const process_grid& grid, const workflows::bench_options&
 }
 
 int run_bench(const common_options& c, const workflows::bench_options& o) {
-  const auto grid = make_grid(c);
+  const auto grid = make_grid(c, {o.n, o.type, o.block, o.lookahead});
   const auto r = workflows::bench(grid, o);
   if (grid.rank() != 0) return 0;
   if (workflows::is_mixed(o.precision)) {
@@ -426,7 +485,7 @@ int run_bench(const common_options& c, const workflows::bench_options& o) {
 }
 
 int run_demo(const common_options& c, const workflows::demo_options& o, std::int64_t digits) {
-  const auto grid = make_grid(c);
+  const auto grid = make_grid(c, {o.n, o.type, o.block, o.lookahead});
   const auto r = workflows::demo(grid, o);
   const int code = digits_code(grid, r.trust, digits);
   if (grid.rank() != 0) return code;
@@ -466,7 +525,11 @@ void print_conductor_answer(const workflows::conductor_options& o,
 
 int run_conductor_demo(const common_options& c, const workflows::conductor_options& o,
                        std::int64_t digits) {
-  const auto grid = make_grid(c);
+  const auto problem = workflows::conductor_problem(o);
+  const std::string type = !o.type.empty()        ? o.type
+                           : problem.is_complex() ? "complex128"
+                                                  : "float64";
+  const auto grid = make_grid(c, {problem.size(), type, o.block, o.lookahead});
   const auto r = workflows::conductor_demo(grid, o);
   const int code = digits_code(grid, r.trust, digits);
   if (grid.rank() != 0) return code;
@@ -676,7 +739,7 @@ subcommand add_solve(CLI::App& app, double started) {
       "--stop-after 710\n\n" +
       std::string(exit_codes_help));
   return {cmd, [=] {
-            const auto grid = make_grid(*c);
+            const auto grid = make_grid(*c, c->grid.empty() ? hint_of_file(*o) : grid_hint{});
             auto options = *o;
             options.checkpoint_every *= 60;
             options.stop_after *= 60;
@@ -718,7 +781,7 @@ subcommand add_resume(CLI::App& app, double started) {
       "Example:\n  mpiexec -n 128 gridlu resume ckpt --stop-after 710\n\n" +
       std::string(exit_codes_help));
   return {cmd, [=] {
-            const auto grid = make_grid(*c);
+            const auto grid = make_grid(*c, c->grid.empty() ? hint_of_job(*o) : grid_hint{});
             auto options = *o;
             options.checkpoint_every = *every < 0 ? -1 : *every * 60;
             auto run = run_settings_for(grid, *c, started);
@@ -994,11 +1057,16 @@ void print_plan(const workflows::plan_result& r) {
   std::printf("gridlu plan: LU of a %s matrix, n = %lld, on %d node(s) x %d core(s) = %d ranks\n",
               o.type.c_str(), static_cast<long long>(o.n), o.nodes, o.cores_per_node, r.ranks);
   std::printf("  rates        %s\n", r.calibration_source.c_str());
-  std::printf("  memory       %s per rank of %s: %s (matrices %s, panels %s, I/O buffers %s)\n",
-              gigabytes(r.memory_per_rank).c_str(),
+  const auto& m = r.memory;
+  std::printf("  memory       %s per rank of %s: %s\n", gigabytes(r.memory_per_rank).c_str(),
               gigabytes(o.memory_per_node / o.cores_per_node).c_str(),
-              r.fits ? "fits" : "does NOT fit", gigabytes(r.memory.matrices).c_str(),
-              gigabytes(r.memory.panels).c_str(), gigabytes(r.memory.io).c_str());
+              r.fits ? "fits" : "does NOT fit");
+  std::printf(
+      "               A's share %s, its copies %s (refinement, mixed precision), B, X "
+      "and work %s, panels %s, I/O buffers %s\n",
+      gigabytes(m.a_share).c_str(), gigabytes(m.a_copies).c_str(),
+      gigabytes(m.matrices - m.a_share - m.a_copies).c_str(), gigabytes(m.panels).c_str(),
+      gigabytes(m.io).c_str());
   std::printf("  checkpoint   %s each, %s of disk while the next is written, %.0f s to write\n",
               gigabytes(r.checkpoint_bytes).c_str(), gigabytes(r.checkpoint_disk_bytes).c_str(),
               r.checkpoint_write_seconds);

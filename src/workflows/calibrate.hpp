@@ -47,6 +47,7 @@ struct plan_candidate {
 struct plan_result {
   plan_options asked;
   std::string calibration_source;
+  std::string factored_type;  // the type, or the single-precision one for mixed precision
   int ranks = 0;
   memory_need memory;  // per rank, of the chosen configuration
   double memory_per_rank = 0;
@@ -69,10 +70,10 @@ plan_result plan(const plan_options& o, const calibration& c);
 double checkpoint_interval(double write, double mtbf);
 
 // The expected wall time of `work` seconds of computation with a checkpoint of `write`
-// seconds after every `interval` seconds of it, `restart` seconds to resume after each
-// failure, and failures at exponentially distributed times `mtbf` apart on average
-// (Daly 2006; the restart is taken equal to the write here, a checkpoint being read as
-// fast as it is written).
+// seconds after every `interval` seconds of it (or once, after all of it, if shorter), `restart`
+// seconds to resume after each failure, and failures at exponentially distributed times `mtbf`
+// apart on average (Daly 2006; the restart is taken equal to the write here, a checkpoint being
+// read as fast as it is written).
 double expected_wall_time(double work, double interval, double write, double restart, double mtbf);
 
 // The grid the model prefers for `ranks` ranks on an order-n matrix of `type`.

@@ -4,6 +4,7 @@
 #include <utility>
 #include <vector>
 
+#include "factor/numerical.hpp"
 #include "gridlu/accuracy.hpp"
 #include "gridlu/generate.hpp"
 #include "gridlu/io.hpp"
@@ -12,7 +13,6 @@
 #include "io/staged.hpp"
 #include "kernels/blas.hpp"
 #include "workflows/dispatch.hpp"
-#include "factor/numerical.hpp"
 #include "workflows/timing.hpp"
 #include "workflows/workflows.hpp"
 
@@ -134,7 +134,8 @@ template <scalar T>
 bench_result bench_typed(const process_grid& grid, const bench_options& o) {
   bench_result r;
   r.block = o.block;
-  auto model = solve_model(grid.shape(), o.n, 1, o.block, sizeof(T), o.lookahead, o.precision, false);
+  auto model =
+      solve_model(grid.shape(), o.n, 1, o.block, sizeof(T), o.lookahead, o.precision, false);
   model.gemm_order = std::min<index_t>(o.n, 2048);
   require_memory(grid, model, o.memory_per_rank, described("matrix", o.type, o.n, grid, "bench"));
   // GEMM first: its operands are freed before the matrix exists, so they do not add to
@@ -177,7 +178,8 @@ demo_result demo_typed(const process_grid& grid, const demo_options& o) {
   demo_result r;
   r.block = o.block;
   require_memory(
-      grid, solve_model(grid.shape(), o.n, o.nrhs, o.block, sizeof(T), o.lookahead, o.precision, false),
+      grid,
+      solve_model(grid.shape(), o.n, o.nrhs, o.block, sizeof(T), o.lookahead, o.precision, false),
       o.memory_per_rank, described("system", o.type, o.n, grid, "demo"));
   const auto a_entry = [&](index_t i, index_t j) { return random_entry<T>(o.seed, i, j); };
   const auto b_entry = [&](index_t i, index_t j) { return random_entry<T>(o.seed + 1, i, j); };
@@ -310,7 +312,8 @@ void generate_file(const process_grid& grid, const generate_options& o) {
   });
   with_type(o.type, [&]<class T>(T) {
     const index_t block = std::min(default_block, o.n);
-    auto model = solve_model(grid.shape(), o.n, o.nrhs, block, sizeof(T), -1, "double", false, false);
+    auto model =
+        solve_model(grid.shape(), o.n, o.nrhs, block, sizeof(T), -1, "double", false, false);
     model.vectors = 1;  // B alone: A and B are filled and written
     require_memory(grid, model, o.memory_per_rank,
                    described("system", o.type, o.n, grid, "generate"));

@@ -175,6 +175,8 @@ memory_need need_per_rank(const memory_model& m) {
   const double kc = static_cast<double>(rhs.local_extent(0));
   memory_need need;
   need.matrices = e * (m.matrix_copies * mr * nc + m.vectors * mr * kc + m.columns * mr);
+  need.a_share = e * mr * nc;
+  need.a_copies = (m.matrix_copies - 1) * need.a_share;
   if (m.lookahead >= 0) {
     const double in_flight =
         static_cast<double>(std::min<index_t>(m.lookahead + 1, rows.block_count()));

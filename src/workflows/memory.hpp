@@ -38,6 +38,8 @@ memory_model solve_model(grid_shape grid, index_t n, index_t nrhs, index_t block
 // Bytes per rank, the largest share of any rank, by part.
 struct memory_need {
   double matrices = 0;  // A's copies and the n x nrhs and n x 1 matrices
+  double a_share = 0;   // of which one copy of A
+  double a_copies = 0;  // and the rest of A's copies (--refine, mixed precision)
   double panels = 0;    // panels in flight, U block rows, interchange messages
   double io = 0;        // the slabs of a matrix read or written
   double gemm = 0;      // bench's GEMM operands (not held with the rest)

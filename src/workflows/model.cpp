@@ -168,16 +168,20 @@ public:
     s.panel = f_ * (h * jb * jb - jb * jb * jb / 3) / p_ / rate(r_.panel, h / p_, jb);
     if (p_ > 1) panel_messages(s, jb);
     s.row_broadcast = ceil_log2(q_) * c_.row_broadcast.seconds(h / p_ * jb * e_);
-    const double moved = 2 * jb * (n / q_) / p_;  // entries each rank moves
+    // The rank holding the step's block row moves all of its jb rows and the pivot rows
+    // coming in, over every local column (the finished ones later, held back); with more
+    // process rows, half of them are messages.
+    const double moved = 2 * jb * (n / q_);
     s.interchange = moved * r_.swap_seconds;
     if (p_ > 1)
       s.interchange +=
-          (p_ - 1) * c_.column_broadcast.latency + moved * e_ / c_.column_broadcast.bandwidth;
+          (p_ - 1) * c_.column_broadcast.latency + moved / 2 * e_ / c_.column_broadcast.bandwidth;
     s.trsm = f_ * jb * jb * (t / q_) / p_ / rate(r_.trsm, 2048, jb);
     if (p_ > 1)
       s.broadcast = 2 * (ceil_log2(p_) * c_.column_broadcast.latency +
                          jb * (t / q_) * e_ * (p_ - 1) / p_ / c_.column_broadcast.bandwidth);
-    s.gemm = f_ * 2 * (t / p_) * (t / q_) * jb / rate(r_.gemm, t / p_, jb);
+    // GEMM's rate follows the smaller of the local block's sides.
+    s.gemm = f_ * 2 * (t / p_) * (t / q_) * jb / rate(r_.gemm, std::min(t / p_, t / q_), jb);
     return s;
   }
 
@@ -193,7 +197,7 @@ private:
   // the interchanges of the other half.
   void panel_messages(step_cost& s, double jb) const {
     const link_cost& col = c_.column_broadcast;
-    s.search = jb * ceil_log2(p_) * col.seconds(2 * 16 * e_ + 16);
+    s.search = jb * 2 * ceil_log2(p_) * col.seconds(2 * 16 * e_ + 16);  // reduce, then share
     const double levels = std::max(0.0, std::ceil(std::log2(jb / 16)));
     s.panel += s.search + levels * ceil_log2(p_) * col.seconds(jb * jb / 4 * e_) +
                (jb / 16) * 2 * col.latency + ceil_log2(p_) * col.seconds(jb * jb * e_);

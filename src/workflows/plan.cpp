@@ -37,6 +37,12 @@ memory_need memory_of(const plan_options& o, grid_shape grid, index_t block) {
       solve_model(grid, o.n, o.nrhs, block, bytes, o.lookahead, o.precision, false));
 }
 
+// The type the factorization runs in: mixed precision factors a single-precision copy.
+std::string factored_type(const plan_options& o) {
+  if (!is_mixed(o.precision)) return o.type;
+  return o.type == "complex128" ? "complex64" : "float32";
+}
+
 void require_sane(const plan_options& o) {
   if (o.n < 1) throw error(error_kind::usage, "--n must be 1 or more");
   if (o.nodes < 1 || o.cores_per_node < 1)
@@ -68,9 +74,10 @@ plan_result plan(const plan_options& o, const calibration& c) {
   r.calibration_source = c.source;
   r.ranks = o.nodes * o.cores_per_node;
   const double room = o.memory_per_node / o.cores_per_node;
+  r.factored_type = factored_type(o);
   for (const grid_shape g : o.grid ? std::vector{*o.grid} : grids_of(r.ranks))
     for (const index_t nb : blocks_of(o))
-      r.candidates.push_back({g, nb, predict(c, {o.n, o.type, g, nb, o.lookahead})});
+      r.candidates.push_back({g, nb, predict(c, {o.n, r.factored_type, g, nb, o.lookahead})});
   // Fastest first among those that fit; all of them when none does.
   const auto fits = [&](const plan_candidate& x) {
     return memory_of(o, x.grid, x.block).total() <= room;
@@ -82,8 +89,9 @@ plan_result plan(const plan_options& o, const calibration& c) {
   r.memory = memory_of(o, best.grid, best.block);
   r.memory_per_rank = r.memory.total();
   r.fits = r.memory_per_rank <= room;
+  // A checkpoint holds the matrix being factored.
   const double e = static_cast<double>(o.n) * static_cast<double>(o.n) *
-                   by_type<double>(o.type, [](auto z) { return double(sizeof z); });
+                   by_type<double>(r.factored_type, [](auto z) { return double(sizeof z); });
   r.checkpoint_bytes = e;
   r.checkpoint_disk_bytes = 2 * e;  // the last checkpoint stays until the next is whole
   r.checkpoint_write_seconds = e / c.write_bandwidth;

@@ -69,6 +69,19 @@ with suite.case("plan --json: memory, disk and grid against the sizes computed h
     floor = 2 / 3 * n ** 3 / (nodes * cores * best * 1e9)
     c.check(p["predicted_seconds"] > floor, f"{p['predicted_seconds']} s beats the GEMM bound")
 
+with suite.case("plan --precision mixed: complex64 factors, half a copy more of A") as c:
+    n, ranks = 20000, 16
+    run = suite.run("plan", "--json", "--n", n, "--type", "complex128", "--precision", "mixed",
+                    "--nodes", 2, "--cores-per-node", 8, "--mem-per-node", 64)
+    c.succeeded(run)
+    p = json.loads(run.stdout)
+    parts = p["memory_parts_bytes"]
+    c.check(p["factored_type"] == "complex64", f"factored in {p['factored_type']}")
+    c.check(p["checkpoint_bytes"] == n * n * 8, f"checkpoint bytes {p['checkpoint_bytes']}")
+    share = n * n * 16 / ranks
+    c.check(share <= parts["a_share"] < 1.2 * share, f"A's share {parts['a_share']}")
+    c.check(math.isclose(parts["a_copies"], parts["a_share"] / 2), f"parts {parts}")
+
 with suite.case("plan: too little memory is said, in JSON and in words") as c:
     args = ["--n", 30000, "--nodes", 1, "--cores-per-node", 2, "--mem-per-node", 4]
     run = plan(*args)
