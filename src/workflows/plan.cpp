@@ -2,6 +2,7 @@
 // an allocation that is not there yet, from the performance model.
 #include <algorithm>
 #include <cmath>
+#include <limits>
 
 #include "gridlu/error.hpp"
 #include "workflows/calibrate.hpp"
@@ -107,12 +108,14 @@ plan_result plan(const plan_options& o, const calibration& c) {
 
 grid_shape model_grid(int ranks, index_t n, const std::string& type, index_t block, int lookahead) {
   static const calibration c = builtin_calibration();
-  grid_shape best = square_grid_shape(ranks);
-  double fastest = predict(c, {n, type, best, block, lookahead}).seconds;
-  for (const grid_shape g : grids_of(ranks))
-    if (const double s = predict(c, {n, type, g, block, lookahead}).seconds; s < fastest)
-      best = g, fastest = s;
-  return best;
+  plan_options o;
+  o.n = n;
+  o.type = type;
+  o.cores_per_node = ranks;
+  o.memory_per_node = std::numeric_limits<double>::infinity();  // the memory check is apart
+  o.block = block;
+  o.lookahead = lookahead;
+  return plan(o, c).chosen().grid;
 }
 
 }  // namespace gridlu::workflows

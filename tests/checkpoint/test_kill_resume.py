@@ -4,6 +4,7 @@ and resume says so, or a sound one, from which resume reaches the uninterrupted 
 pivots. Then solves stopped by SIGTERM and resumed on other rank counts, grids and block
 sizes."""
 
+import json
 import re
 import sys
 from pathlib import Path
@@ -143,7 +144,11 @@ with suite.case("1 rank, SIGTERM -> 2 ranks, SIGTERM -> 4 ranks: X and pivots") 
     job = Job(suite, ["resume", ckpt], 4)
     run = job.wait()
     c.succeeded(run)
-    summary_shows(c, run, "2x2")
+    # The default grid: the one `gridlu plan` predicts fastest for the job (block 224).
+    plan = suite.run("plan", "--json", "--n", N, "--nodes", 1, "--cores-per-node", 4,
+                     "--mem-per-node", 64, "--block", 224)
+    c.require(plan.code == 0, plan.describe())
+    summary_shows(c, run, "x".join(map(str, json.loads(plan.stdout)["grid"])))
     final = system.check_solved(c, ckpt, out, same_grid=False)
     check_elapsed(c, final, wall + job.seconds)
     c.check(final["restarts"] == first["restarts"] + 2,

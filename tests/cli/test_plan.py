@@ -53,9 +53,14 @@ with suite.case("plan --json: memory, disk and grid against the sizes computed h
     c.succeeded(run)
     p = json.loads(run.stdout)
     c.check(all(k in p for k in KEYS), f"missing keys: {[k for k in KEYS if k not in p]}")
-    share = n * n * 8 / (nodes * cores)  # A's share of a rank, float64
-    c.check(share <= p["memory_per_rank_bytes"] < 2 * share,
-            f"memory per rank {p['memory_per_rank_bytes']:.3e} against A's share {share:.3e}")
+    parts, (rows, cols), b = p["memory_parts_bytes"], p["grid"], p["block"]
+    # A's share on rank 0, which holds the most of the block-cyclic layout: at least an
+    # even share, at most one block more each way.
+    share = n * n * 8 / (nodes * cores)
+    c.check(share <= parts["a_share"] <= share * (1 + b * rows / n) * (1 + b * cols / n),
+            f"A's share {parts['a_share']:.3e} against {share:.3e}")
+    c.check(math.isclose(sum(parts.values()), p["memory_per_rank_bytes"]),
+            f"parts {parts} do not add up to {p['memory_per_rank_bytes']}")
     c.check(p["fits"] is True, "64 GiB per node should fit")
     c.check(p["checkpoint_bytes"] == n * n * 8, f"checkpoint bytes {p['checkpoint_bytes']}")
     c.check(p["grid"][0] * p["grid"][1] == nodes * cores, f"grid {p['grid']}")
