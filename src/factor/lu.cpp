@@ -10,6 +10,7 @@
 
 #include "comm/collectives.hpp"
 #include "factor/interchange.hpp"
+#include "factor/unit_lower.hpp"
 #include "instantiate.hpp"
 #include "kernels/blas.hpp"
 
@@ -33,27 +34,10 @@ using blas::diagonal;
 using blas::op;
 using blas::triangle;
 using detail::column_range;
+using detail::solve_unit_lower;
 
 // Below this many columns the panel recursion goes column by column.
 constexpr index_t narrow_width = 16;
-
-// Below this many rows a unit lower triangle goes to the library's TRSM.
-constexpr index_t solve_base = 32;
-
-// B = inv(L) B for a unit lower m x m triangle L: halves joined by a GEMM, down to
-// solve_base rows for the library's TRSM, so that most of its flops are GEMM's (a base
-// of 32 rows beat 16, and TRSM alone, by 3-15 %; figures in DEVELOPERS.md).
-template <scalar T>
-void solve_unit_lower(index_t m, index_t n, const T* l, index_t ldl, T* b, index_t ldb) {
-  if (m <= solve_base) {
-    blas::trsm_left(triangle::lower, diagonal::unit, blas::op::none, m, n, T(1), l, ldl, b, ldb);
-    return;
-  }
-  const index_t h = m / 2;
-  solve_unit_lower(h, n, l, ldl, b, ldb);
-  blas::gemm(op::none, op::none, m - h, n, h, T(-1), l + h, ldl, b, ldb, T(1), b + h, ldb);
-  solve_unit_lower(m - h, n, l + h + h * ldl, ldl, b + h, ldb);
-}
 
 // Recursive factorization of the panel of global columns [j0, j0 + jb) on the process
 // column that owns it (local columns from lc0): the left half, its interchanges on the

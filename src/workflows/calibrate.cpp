@@ -8,10 +8,14 @@
 
 #include "comm/collectives.hpp"
 #include "factor/interchange.hpp"
+#include "factor/unit_lower.hpp"
+#include "gridlu/generate.hpp"
+#include "gridlu/lu.hpp"
 #include "io/staged.hpp"
 #include "kernels/blas.hpp"
 #include "workflows/calibrate.hpp"
 #include "workflows/dispatch.hpp"
+#include "workflows/timing.hpp"
 
 namespace gridlu::workflows {
 namespace {
@@ -21,25 +25,29 @@ namespace {
 constexpr index_t sample_rows[] = {128, 256, 512, 1024, 2048, 4096};
 constexpr index_t panel_rows[] = {256, 1024, 4096, 16384};
 constexpr index_t sample_k[] = {32, 64, 128, 256, 384};
-constexpr index_t trsm_columns = 2048;
+constexpr index_t trsm_columns = 2048, trsm_ld = 2048;
 
-// The slowest rank's rate of `call` (flops each), repeated for at least 20 ms after a
-// warm-up call; `prepare` runs untimed before each call.
+// The slowest rank's rate of `call` (flops each): the median of three batches of calls,
+// each at least 30 ms long, after a warm-up call; `prepare` runs untimed before each call.
 template <class Prepare, class Call>
 double rate_of(const process_grid& grid, double flops, Prepare&& prepare, Call&& call) {
   prepare();
   call();
   comm::barrier(grid.all());
-  double busy = 0;
-  int calls = 0;
-  while (calls < 2 || busy < 0.02) {
-    prepare();
-    const double start = comm::wtime();
-    call();
-    busy += comm::wtime() - start;
-    ++calls;
+  std::vector<double> rates;
+  for (int batch = 0; batch < 3; ++batch) {
+    double busy = 0;
+    int calls = 0;
+    while (busy < 0.03) {
+      prepare();
+      const double start = comm::wtime();
+      call();
+      busy += comm::wtime() - start;
+      ++calls;
+    }
+    rates.push_back(flops * calls / busy * 1e-9);
   }
-  double gflops = flops * calls / busy * 1e-9;
+  double gflops = median(rates);
   comm::min(grid.all(), &gflops, 1);
   return gflops;
 }
@@ -89,16 +97,17 @@ rate_table trsm_rates(const process_grid& grid) {
   for (const index_t k : sample_k) {
     auto l = random_entries<T>(k * k, 4);
     for (index_t i = 0; i < k; ++i) l[static_cast<std::size_t>(i * k + i)] = T(k);
-    const auto b0 = random_entries<T>(k * trsm_columns, 5);
+    // The block row lies in a tall local matrix: its columns are trsm_ld entries apart.
+    const auto b0 = random_entries<T>(trsm_ld * trsm_columns, 5);
     auto b = b0;
+    const auto restore = [&] {
+      for (index_t c = 0; c < trsm_columns; ++c)
+        std::copy_n(b0.begin() + c * trsm_ld, k, b.begin() + c * trsm_ld);
+    };
     const double f = flops_of<T>(1.0 * k * k * trsm_columns);
-    t.push_back({trsm_columns, k,
-                 rate_of(
-                     grid, f, [&] { b = b0; },
-                     [&] {
-                       blas::trsm_left(blas::triangle::lower, blas::diagonal::unit, blas::op::none,
-                                       k, trsm_columns, T(1), l.data(), k, b.data(), k);
-                     })});
+    t.push_back({trsm_columns, k, rate_of(grid, f, restore, [&] {
+                   detail::solve_unit_lower(k, trsm_columns, l.data(), k, b.data(), trsm_ld);
+                 })});
   }
   return rate_table(std::move(t));
 }
@@ -124,7 +133,7 @@ rate_table panel_rates(const process_grid& grid) {
 // factorization's own interchange code on a matrix of this rank alone.
 template <scalar T>
 double swap_seconds(const process_grid& grid) {
-  constexpr index_t rows = 4096, cols = 1024, jb = 128;
+  constexpr index_t rows = 4096, cols = 2048, jb = 224;
   const process_grid self(MPI_COMM_SELF, {1, 1});
   dist_matrix<T> a(self, rows, cols, jb);
   std::mt19937_64 g(7);
@@ -141,6 +150,27 @@ double swap_seconds(const process_grid& grid) {
   return 1e-9 / gflops;
 }
 
+// The share of the GEMM table's rate the trailing update gets inside a factorization: a
+// factorization of order 3072 on every rank at once, each on a grid of its own, its GEMM
+// phase against the table's time for the same updates.
+template <scalar T>
+double gemm_in_factorization(const process_grid& grid, const rate_table& gemm) {
+  constexpr index_t n = 3072, nb = 224;
+  const process_grid self(MPI_COMM_SELF, {1, 1});
+  dist_matrix<T> a(self, n, n, nb);
+  for (index_t j = 0; j < n; ++j)
+    for (index_t i = 0; i < n; ++i) *a.at(i, j) = random_entry<T>(8, i, j);
+  comm::barrier(grid.all());
+  double measured = factor(a).phases.gemm;
+  comm::max(grid.all(), &measured, 1);
+  double table = 0;
+  for (index_t j0 = 0; j0 < n; j0 += nb) {
+    const double jb = static_cast<double>(std::min(nb, n - j0)), t = double(n - j0) - jb;
+    table += flops_of<T>(2 * t * t * jb) / (1e9 * gemm.gflops_at(std::max(t, 1.0), jb));
+  }
+  return table / measured;
+}
+
 // One step of a broadcast tree over c from the times of a small and a large broadcast,
 // each closed by a barrier whose own time is taken off; the point-to-point figures when
 // c has a single rank.
@@ -150,30 +180,44 @@ link_cost tree_step(const process_grid& grid, const communicator& c, const link_
   if (size < 2) return fallback;
   constexpr index_t large = index_t{1} << 22;
   std::vector<std::int64_t> data(large / 8);
-  const auto time_of = [&](index_t bytes) {
-    const int rounds = bytes > 1024 ? 10 : 200;
-    comm::barrier(grid.all());
-    const double start = comm::wtime();
-    for (int r = 0; r < rounds; ++r) {
-      if (bytes > 0) comm::broadcast(c, data.data(), bytes / 8, 0);
-      comm::barrier(c);
+  const auto time_of = [&](index_t bytes) {  // the median of five batches
+    const int rounds = bytes > 1024 ? 4 : 100;
+    std::vector<double> t;
+    for (int batch = 0; batch < 5; ++batch) {
+      comm::barrier(grid.all());
+      const double start = comm::wtime();
+      for (int r = 0; r < rounds; ++r) {
+        if (bytes > 0) comm::broadcast(c, data.data(), bytes / 8, 0);
+        comm::barrier(c);
+      }
+      double seconds = (comm::wtime() - start) / rounds;
+      comm::max(grid.all(), &seconds, 1);
+      t.push_back(seconds);
     }
-    double seconds = (comm::wtime() - start) / rounds;
-    comm::max(grid.all(), &seconds, 1);
-    return seconds;
+    return median(t);
   };
   const double hops = std::ceil(std::log2(size)), barrier = time_of(0);
   const double small = std::max(time_of(8) - barrier, 0.0), big = time_of(large) - barrier;
   return {small / hops, static_cast<double>(large) * hops / std::max(big - small, 1e-9)};
 }
 
+// The median of five ping-pong batches: one batch a scheduler delays says nothing of
+// the network.
+double trip_seconds(const process_grid& grid, index_t bytes, int rounds) {
+  std::vector<double> t;
+  for (int batch = 0; batch < 5; ++batch) {
+    double s = comm::ping_pong(grid.all(), 0, 1, bytes, rounds);
+    comm::max(grid.all(), &s, 1);
+    t.push_back(s);
+  }
+  return median(t);
+}
+
 link_cost point_to_point(const process_grid& grid) {
   if (grid.size() < 2) return {};
   constexpr index_t large = index_t{1} << 22;
-  double t[2] = {comm::ping_pong(grid.all(), 0, 1, 8, 1000),
-                 comm::ping_pong(grid.all(), 0, 1, large, 20)};
-  comm::max(grid.all(), t, 2);
-  return {t[0], static_cast<double>(large) / std::max(t[1] - t[0], 1e-9)};
+  const double small = trip_seconds(grid, 8, 200), big = trip_seconds(grid, large, 4);
+  return {small, static_cast<double>(large) / std::max(big - small, 1e-9)};
 }
 
 double write_bandwidth(const process_grid& grid, const std::string& directory, std::int64_t bytes) {
@@ -202,9 +246,10 @@ calibration calibrate(const process_grid& grid, const calibrate_options& o) {
   c.ranks = grid.size();
   for (const auto& type : o.types)
     with_type(type, [&]<class T>(T) {
+      const rate_table gemm = gemm_rates<T>(grid);
       c.types.push_back({type,
-                         {gemm_rates<T>(grid), trsm_rates<T>(grid), panel_rates<T>(grid),
-                          swap_seconds<T>(grid)}});
+                         {gemm, trsm_rates<T>(grid), panel_rates<T>(grid), swap_seconds<T>(grid),
+                          gemm_in_factorization<T>(grid, gemm)}});
     });
   c.point_to_point = point_to_point(grid);
   c.row_broadcast = tree_step(grid, grid.row(), c.point_to_point);

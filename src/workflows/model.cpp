@@ -99,7 +99,8 @@ nlohmann::json calibration::json() const {
     t[name] = {{"gemm", table_json(r.gemm)},
                {"trsm", table_json(r.trsm)},
                {"panel", table_json(r.panel)},
-               {"swap_seconds_per_entry", r.swap_seconds}};
+               {"swap_seconds_per_entry", r.swap_seconds},
+               {"gemm_in_factorization", r.gemm_in_factorization}};
   return {{"format", "gridlu calibration 1"},
           {"source", source},
           {"ranks", ranks},
@@ -170,7 +171,7 @@ public:
     s.row_broadcast = ceil_log2(q_) * c_.row_broadcast.seconds(h / p_ * jb * e_);
     // The rank holding the step's block row moves all of its jb rows and the pivot rows
     // coming in, over every local column (the finished ones later, held back); with more
-    // process rows, half of them are messages.
+    // process rows, half of them travel as messages.
     const double moved = 2 * jb * (n / q_);
     s.interchange = moved * r_.swap_seconds;
     if (p_ > 1)
@@ -181,7 +182,8 @@ public:
       s.broadcast = 2 * (ceil_log2(p_) * c_.column_broadcast.latency +
                          jb * (t / q_) * e_ * (p_ - 1) / p_ / c_.column_broadcast.bandwidth);
     // GEMM's rate follows the smaller of the local block's sides.
-    s.gemm = f_ * 2 * (t / p_) * (t / q_) * jb / rate(r_.gemm, std::min(t / p_, t / q_), jb);
+    s.gemm = f_ * 2 * (t / p_) * (t / q_) * jb / rate(r_.gemm, std::min(t / p_, t / q_), jb) /
+             r_.gemm_in_factorization;
     return s;
   }
 

@@ -43,6 +43,10 @@ struct link_cost {
 struct kernel_rates {
   rate_table gemm, trsm, panel;
   double swap_seconds = 0;  // per entry a row interchange moves within a rank
+  // The trailing update's GEMM rate inside a factorization, as a share of the table's:
+  // between the chunks of an update the interchanges and the triangular solve take the
+  // caches, which GEMM alone keeps.
+  double gemm_in_factorization = 1;
 };
 
 struct calibration {

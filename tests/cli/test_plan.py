@@ -31,6 +31,8 @@ with suite.case("calibrate on 2 ranks: a complete calibration, no scratch file l
                 f"{kernel} rates: {f64[kernel]}")
     c.check(len({(rows, k) for rows, k, _ in f64["gemm"]}) >= 20, "GEMM samples cover few shapes")
     c.check(f64["swap_seconds_per_entry"] > 0, "no interchange cost")
+    c.check(0.3 < f64["gemm_in_factorization"] < 1.5,
+            f"GEMM inside LU at {f64['gemm_in_factorization']} of its rate alone")
     for link in ("point_to_point", "row_broadcast", "column_broadcast"):
         c.check(cal[link]["latency_seconds"] >= 0 and cal[link]["bandwidth_bytes_per_second"] > 0,
                 f"{link}: {cal[link]}")
