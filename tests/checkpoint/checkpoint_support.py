@@ -27,6 +27,12 @@ from harness import Run, conditioned_matrix, eps, random_matrix, read_h5, rel_di
 # Large enough that a run on 2 ranks lasts a second or two and a checkpoint write (72 MB)
 # can be caught in progress, small enough to keep the suite within a few minutes.
 N = 3000
+# The order of System under the sanitizers, whose build runs gridlu's own loops (checksums,
+# packing, pivoting) many times slower: a checkpointed run of this order, and each of its
+# writes, still lasts longer than one of N in the release build, with the same code paths.
+# (2 ranks on 2 shared cores, EVERY: sanitized, 2000: 13 s, 8 writes of 0.6 s; 3000: 156 s,
+# 27 writes of 3 s. Release, 3000: 4.6 s, 10 writes of 0.15 s.)
+SANITIZED_N = 2000
 BLOCK = 32
 COND = 10.0
 # Minutes of factorization between periodic checkpoints (0.03 s): several per run, also
@@ -44,10 +50,10 @@ POLL = 0.001
 SAME_GRID_TOL = 1e-12
 
 
-def solution_tol():
-    """harness.rel_tol for a matrix whose condition number is COND by construction: computing
-    it with np.linalg.cond would cost more than the test itself."""
-    return min(100 * N * eps(np.float64) * COND, 1e-3)
+def solution_tol(n):
+    """harness.rel_tol for a matrix of order n whose condition number is COND by construction:
+    computing it with np.linalg.cond would cost more than the test itself."""
+    return min(100 * n * eps(np.float64) * COND, 1e-3)
 
 
 def text(value):
@@ -58,15 +64,18 @@ def text(value):
 
 
 class System:
-    """A float64 system A X = B in an input file, with numpy's solution and, once
-    `solve_uninterrupted` has run, an uninterrupted gridlu run's X and pivots."""
+    """A float64 system A X = B of order n (N, or SANITIZED_N) in an input file, with numpy's
+    solution and, once `solve_uninterrupted` has run, an uninterrupted gridlu run's X and
+    pivots."""
 
     def __init__(self, suite, seed, name="system.h5"):
         rng = np.random.default_rng(seed)
         self.suite = suite
         self.path = suite.root / name
-        self.a = conditioned_matrix(rng, N, np.float64, COND)
-        self.b = random_matrix(rng, (N, 2), np.float64)
+        self.n = SANITIZED_N if suite.sanitized() else N
+        self.tol = solution_tol(self.n)
+        self.a = conditioned_matrix(rng, self.n, np.float64, COND)
+        self.b = random_matrix(rng, (self.n, 2), np.float64)
         harness.write_h5(self.path, {"A": self.a, "B": self.b})
         # reference: numpy.linalg.solve
         self.x_numpy = np.linalg.solve(self.a, self.b)
@@ -89,8 +98,8 @@ class System:
         x = read_h5(out, "X")
         err = rel_diff(x, self.x_numpy)
         # reference: numpy.linalg.solve
-        c.require(err <= solution_tol(),
-                  f"||X - X_numpy||_F / ||X_numpy||_F = {err:.2e} > {solution_tol():.2e}")
+        c.require(err <= self.tol,
+                  f"||X - X_numpy||_F / ||X_numpy||_F = {err:.2e} > {self.tol:.2e}")
         self.x_ref, self.pivots_ref = x, read_h5(factors, "pivots")
 
     def check_solved(self, c, directory, out, same_grid=True):
@@ -102,11 +111,11 @@ class System:
         x = read_h5(out, "X")
         err = rel_diff(x, self.x_numpy)
         # reference: numpy.linalg.solve
-        c.check(err <= solution_tol(),
-                f"||X - X_numpy||_F / ||X_numpy||_F = {err:.2e} > {solution_tol():.2e}")
+        c.check(err <= self.tol,
+                f"||X - X_numpy||_F / ||X_numpy||_F = {err:.2e} > {self.tol:.2e}")
         # reference: the uninterrupted run; on another grid or block size the rounding differs,
         # and both answers are only within the accuracy of a solve of each other.
-        tol = SAME_GRID_TOL if same_grid else 2 * solution_tol()
+        tol = SAME_GRID_TOL if same_grid else 2 * self.tol
         err = rel_diff(x, self.x_ref)
         c.check(err <= tol, f"||X - X_uninterrupted||_F / ||X_uninterrupted||_F = {err:.2e} > "
                             f"{tol:.0e}")

@@ -13,7 +13,7 @@ from pathlib import Path
 import h5py
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from checkpoint_support import (BLOCK, EVERY, N, NO_DATA, RANKS, System, harness,  # noqa: E402
+from checkpoint_support import (BLOCK, EVERY, NO_DATA, RANKS, System, harness,  # noqa: E402
                                 interrupt, read_h5, rel_diff, sound_checkpoint)
 
 suite = harness.Suite(__doc__)
@@ -91,7 +91,7 @@ with suite.case("A rewritten with one entry changed after the checkpoint: exit 3
     shutil.copy(system.path, source)
     ckpt, out = stopped_solve(c, source)
     a = system.a.copy()
-    a[17, N - 5] += 0.5
+    a[17, system.n - 5] += 0.5
     harness.write_h5(source, {"A": a, "B": system.b})
     expect_refusal(c, ckpt, out)
 
@@ -128,10 +128,11 @@ with suite.case("gridlu info on a checkpoint stopped again after a resume") as c
     run = suite.run("info", ckpt)
     c.succeeded(run)
     shown = run.stdout
-    c.check(re.search(rf"\b{cp['k']} of {N}\b", shown),
-            f"no '{cp['k']} of {N}' (columns_done of n) in:\n{shown}")
+    n = system.n
+    c.check(re.search(rf"\b{cp['k']} of {n}\b", shown),
+            f"no '{cp['k']} of {n}' (columns_done of n) in:\n{shown}")
     # reference: LU's flop count to leading order, 2/3 n^3, of which 2/3 (n - k)^3 remain
-    percent = 100 * (1 - (1 - cp["k"] / N) ** 3)
+    percent = 100 * (1 - (1 - cp["k"] / n) ** 3)
     figures = [float(v) for v in re.findall(r"(\d+(?:\.\d+)?)\s*%", shown)]
     c.check(any(abs(v - percent) <= 1 for v in figures),
             f"no percentage within 1 of {percent:.1f} % of the flops in:\n{shown}")

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from checkpoint_support import (EVERY, N, NO_DATA, RANKS, Job, System, Watch,  # noqa: E402
+from checkpoint_support import (EVERY, NO_DATA, RANKS, Job, System, Watch,  # noqa: E402
                                 check_elapsed, columns_done, committed, harness,
                                 inspect_checkpoint, interrupt, sound_checkpoint)
 
@@ -66,31 +66,41 @@ def final_committed():
         if len(w.commits) == len(seen):
             return False
         seen.append(now)
-        return columns_done(w.dir) == N
+        return columns_done(w.dir) == system.n
     return moment
 
 
 # Half the interval between checkpoints, in seconds.
 BETWEEN = float(EVERY) * 60 / 2
+# Each moment, and whether the first checkpoint has been committed by then.
 MOMENTS = [
-    ("0.05 s after launch", at(0.05)),
-    ("as the first checkpoint write begins", writing(1)),
-    ("halfway through the first checkpoint write", writing(1, 0.5)),
-    ("just after the first checkpoint is committed", after_commit(1)),
-    ("between the first and second checkpoints", after_commit(1, BETWEEN)),
-    ("as the second checkpoint write begins", writing(2)),
-    ("halfway through the second checkpoint write", writing(2, 0.5)),
-    ("at the end of the second checkpoint write (flush, verify, rename)", writing(2, 0.9)),
-    ("just after the second checkpoint is committed", after_commit(2)),
-    ("as the third checkpoint write begins", writing(3)),
-    ("a third of the way through the third checkpoint write", writing(3, 0.33)),
-    ("two thirds of the way through the third checkpoint write", writing(3, 0.67)),
-    ("between the third and fourth checkpoints", after_commit(3, BETWEEN)),
-    ("just after the final checkpoint, before X is written", final_committed()),
+    ("0.05 s after launch", at(0.05), False),
+    ("as the first checkpoint write begins", writing(1), False),
+    ("halfway through the first checkpoint write", writing(1, 0.5), False),
+    ("just after the first checkpoint is committed", after_commit(1), True),
+    ("between the first and second checkpoints", after_commit(1, BETWEEN), True),
+    ("as the second checkpoint write begins", writing(2), True),
+    ("halfway through the second checkpoint write", writing(2, 0.5), True),
+    ("at the end of the second checkpoint write (flush, verify, rename)", writing(2, 0.9), True),
+    ("just after the second checkpoint is committed", after_commit(2), True),
+    ("as the third checkpoint write begins", writing(3), True),
+    ("a third of the way through the third checkpoint write", writing(3, 0.33), True),
+    ("two thirds of the way through the third checkpoint write", writing(3, 0.67), True),
+    ("between the third and fourth checkpoints", after_commit(3, BETWEEN), True),
+    ("just after the final checkpoint, before X is written", final_committed(), True),
 ]
+if suite.sanitized():
+    # The sanitizers watch gridlu's code, and a SIGKILLed run runs none after the kill; what
+    # differs between moments for that code is what resume finds, and it removes a write's
+    # staging unread (io::remove_stale_staging), however far the write got. These six leave
+    # every such state: no job recorded; a job and a write's staging but no checkpoint; a
+    # checkpoint, just committed and later with no write under way; a checkpoint and a
+    # write's staging; the checkpoint of the whole factorization. (A job with neither
+    # checkpoint nor staging: test_ownership.py, case 9.) The release build keeps them all.
+    MOMENTS = [MOMENTS[i] for i in (0, 2, 3, 4, 6, 13)]
 
 outcomes = {"checkpoint": 0, "none": 0}
-for description, moment in MOMENTS:
+for description, moment, _ in MOMENTS:
     with suite.case(f"SIGKILL {description}, then resume") as c:
         c.require(timing, "no timings from the uninterrupted checkpointed solve")
         ckpt, out = c.dir / "ckpt", c.dir / "x.h5"
@@ -117,8 +127,12 @@ for description, moment in MOMENTS:
         c.succeeded(suite.run("resume", ckpt, ranks=RANKS))
         system.check_solved(c, ckpt, out)
 
-with suite.case(f"at least 10 of {len(MOMENTS)} kills left a checkpoint to resume from") as c:
-    c.check(outcomes["checkpoint"] >= 10, f"kills leaving a checkpoint or none: {outcomes}")
+# Every kill after the first commit should find a checkpoint; one is let off (10 of the 11
+# in the full list).
+NEEDED = sum(after_first for _, _, after_first in MOMENTS) - 1
+with suite.case(f"at least {NEEDED} of {len(MOMENTS)} kills left a checkpoint to resume from") \
+        as c:
+    c.check(outcomes["checkpoint"] >= NEEDED, f"kills leaving a checkpoint or none: {outcomes}")
 
 
 def summary_shows(c, run, grid, block=None):
@@ -145,7 +159,7 @@ with suite.case("1 rank, SIGTERM -> 2 ranks, SIGTERM -> 4 ranks: X and pivots") 
     run = job.wait()
     c.succeeded(run)
     # The default grid: the one `gridlu plan` predicts fastest for the job (block 224).
-    plan = suite.run("plan", "--json", "--n", N, "--nodes", 1, "--cores-per-node", 4,
+    plan = suite.run("plan", "--json", "--n", system.n, "--nodes", 1, "--cores-per-node", 4,
                      "--mem-per-node", 64, "--block", 224)
     c.require(plan.code == 0, plan.describe())
     summary_shows(c, run, "x".join(map(str, json.loads(plan.stdout)["grid"])))

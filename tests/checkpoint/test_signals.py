@@ -16,7 +16,7 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from checkpoint_support import (BLOCK, EVERY, N, RANKS, STOPPED, Job, System,  # noqa: E402
+from checkpoint_support import (BLOCK, EVERY, RANKS, STOPPED, Job, System,  # noqa: E402
                                 Watch, after_commits, alive, check_elapsed, columns_done,
                                 factors_of, harness, partials, printed_resume, sound_checkpoint,
                                 staging_left)
@@ -43,8 +43,9 @@ def stopped(c, job, ckpt, out, first_k=0):
     c.require(not run.hung and run.code == STOPPED, f"expected exit 5: {run.describe()}")
     c.check(not out.exists(), f"a stopped run wrote {out}")
     cp = sound_checkpoint(c, ckpt, system.a)
-    c.check(first_k <= cp["k"] < N, f"stopped with {cp['k']} of {N} columns done, "
-                                    f"expected from {first_k} on and short of {N}")
+    n = system.n
+    c.check(first_k <= cp["k"] < n, f"stopped with {cp['k']} of {n} columns done, "
+                                    f"expected from {first_k} on and short of {n}")
     check_elapsed(c, cp, job.seconds)
     args = printed_resume(run)
     c.require(args, f"no `gridlu resume` command printed:\n{run.stdout}{run.stderr}")
@@ -74,12 +75,20 @@ def signalled(c, send):
     resumed(c, stopped(c, job, ckpt, out, first_k), ckpt, out)
 
 
-for sig in (signal.SIGTERM, signal.SIGUSR1, signal.SIGINT):
+# One handler takes SIGTERM, SIGUSR1 and SIGINT (src/workflows/stop.cpp), and mpiexec and
+# tools/launch hand the ranks SIGUSR1: signals and routes differ, gridlu's code does not.
+# Under the sanitizers, which watch that code, SIGTERM to the ranks stands for them all
+# (SIGUSR1 reaches the ranks again in the last case); the release build tries every route.
+EVERY_ROUTE = not suite.sanitized()
+
+SIGNALS = (signal.SIGTERM, signal.SIGUSR1, signal.SIGINT) if EVERY_ROUTE else (signal.SIGTERM,)
+for sig in SIGNALS:
     with suite.case(f"{sig.name} to the ranks: exit 5, the printed resume command completes") as c:
         signalled(c, lambda job, s=sig: job.signal_ranks(s))
 
-with suite.case("SIGUSR1 to mpiexec, which forwards it: exit 5, resume completes") as c:
-    signalled(c, lambda job: job.proc.send_signal(signal.SIGUSR1))
+if EVERY_ROUTE:
+    with suite.case("SIGUSR1 to mpiexec, which forwards it: exit 5, resume completes") as c:
+        signalled(c, lambda job: job.proc.send_signal(signal.SIGUSR1))
 
 # The second signal must come while the temporary file is still there; being late by a
 # scheduling delay is the test's failure, not gridlu's, so it gets up to three tries.
@@ -156,9 +165,10 @@ def checkpointed_job(c, every=EVERY, **launch):
 
 # A terminal's Ctrl-C goes to the foreground process group: tools/launch's, and mpiexec's too
 # if they shared one (mpiexec would then end the job itself and exit 1).
-for name, send in (("Ctrl-C (SIGINT to its process group)",
-                    lambda job: os.killpg(job.proc.pid, signal.SIGINT)),
-                   ("SIGTERM", lambda job: job.proc.send_signal(signal.SIGTERM))):
+LAUNCH_SIGNALS = (("Ctrl-C (SIGINT to its process group)",
+                   lambda job: os.killpg(job.proc.pid, signal.SIGINT)),
+                  ("SIGTERM", lambda job: job.proc.send_signal(signal.SIGTERM)))
+for name, send in LAUNCH_SIGNALS if EVERY_ROUTE else ():
     with suite.case(f"{name} to tools/launch: exit 5, nothing staged, resume completes") as c:
         job, ckpt, out, first_k, reached = checkpointed_job(c, launcher=str(LAUNCH))
         send(job)
@@ -198,8 +208,9 @@ with suite.case("SIGTERM to plain mpiexec: exit 5 or Open MPI's 1, sound checkpo
             f"expected at most one 'gridlu: error: ' line on stderr, got {lines!r}")
     c.check(not out.exists(), f"a stopped run wrote {out}")
     cp = sound_checkpoint(c, ckpt, system.a)
-    c.check(first_k <= cp["k"] < N, f"{cp['k']} of {N} columns in the checkpoint, expected "
-                                    f"from {first_k} on and short of {N}")
+    n = system.n
+    c.check(first_k <= cp["k"] < n, f"{cp['k']} of {n} columns in the checkpoint, expected "
+                                    f"from {first_k} on and short of {n}")
     if printed_resume(run):
         c.check(not staging_left(c.dir), f"staging left by an announced stop: "
                                          f"{staging_left(c.dir)}")
