@@ -170,9 +170,10 @@ public:
     if (p_ > 1) panel_messages(s, jb);
     s.row_broadcast = ceil_log2(q_) * c_.row_broadcast.seconds(h / p_ * jb * e_);
     // The rank holding the step's block row moves all of its jb rows and the pivot rows
-    // coming in, over every local column (the finished ones later, held back); with more
-    // process rows, half of them travel as messages.
-    const double moved = 2 * jb * (n / q_);
+    // coming in, over the local columns still to update; with more process rows, half of
+    // them travel as messages. The finished columns' interchanges are held back and done
+    // in one pass with each column in cache (or while waiting for a panel): not counted.
+    const double moved = 2 * jb * (h / q_);
     s.interchange = moved * r_.swap_seconds;
     if (p_ > 1)
       s.interchange +=
