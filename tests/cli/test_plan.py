@@ -31,7 +31,8 @@ with suite.case("calibrate on 2 ranks: a complete calibration, no scratch file l
                 f"{kernel} rates: {f64[kernel]}")
     c.check(len({(rows, k) for rows, k, _ in f64["gemm"]}) >= 20, "GEMM samples cover few shapes")
     c.check(f64["swap_seconds_per_entry"] > 0, "no interchange cost")
-    c.check(0.3 < f64["gemm_in_factorization"] < 1.5,
+    # A sanity bound only: on a machine busy with other tests the share moves a lot.
+    c.check(0.1 < f64["gemm_in_factorization"] < 2,
             f"GEMM inside LU at {f64['gemm_in_factorization']} of its rate alone")
     for link in ("point_to_point", "row_broadcast", "column_broadcast"):
         c.check(cal[link]["latency_seconds"] >= 0 and cal[link]["bandwidth_bytes_per_second"] > 0,
@@ -85,8 +86,9 @@ with suite.case("plan --precision mixed: complex64 factors, half a copy more of 
     parts = p["memory_parts_bytes"]
     c.check(p["factored_type"] == "complex64", f"factored in {p['factored_type']}")
     c.check(p["checkpoint_bytes"] == n * n * 8, f"checkpoint bytes {p['checkpoint_bytes']}")
-    share = n * n * 16 / ranks
-    c.check(share <= parts["a_share"] < 1.2 * share, f"A's share {parts['a_share']}")
+    share, (rows, cols), b = n * n * 16 / ranks, p["grid"], p["block"]
+    c.check(share <= parts["a_share"] <= share * (1 + b * rows / n) * (1 + b * cols / n),
+            f"A's share {parts['a_share']} against {share} (grid {p['grid']}, block {b})")
     c.check(math.isclose(parts["a_copies"], parts["a_share"] / 2), f"parts {parts}")
 
 with suite.case("plan: too little memory is said, in JSON and in words") as c:
