@@ -57,14 +57,7 @@ double rate_of(const process_grid& grid, double flops, Prepare&& prepare, Call&&
 template <scalar T>
 std::vector<T> random_entries(index_t count, std::uint64_t seed) {
   std::vector<T> v(static_cast<std::size_t>(count));
-  std::mt19937_64 g(seed);
-  std::uniform_real_distribution<real_t<T>> u(-1, 1);
-  for (auto& x : v) {
-    if constexpr (scalar_traits<T>::is_complex)
-      x = T(u(g), u(g));
-    else
-      x = u(g);
-  }
+  for (index_t i = 0; i < count; ++i) v[static_cast<std::size_t>(i)] = random_entry<T>(seed, i, 0);
   return v;
 }
 

@@ -42,6 +42,7 @@ struct plan_candidate {
   grid_shape grid;
   index_t block = 0;
   prediction predicted;
+  bool fits = false;  // in the memory per rank
 };
 
 struct plan_result {

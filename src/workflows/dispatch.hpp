@@ -25,6 +25,11 @@ R by_type(const std::string& type, F&& f) {
   return result;
 }
 
+// Bytes of one entry of the element type named `type`, or a refusal of the name.
+inline double element_bytes(const std::string& type) {
+  return by_type<double>(type, [](auto zero) { return double(sizeof zero); });
+}
+
 // What the one-line refusal names: "a float64 system of order 3000 (gridlu demo, grid 1x2)".
 inline std::string described(const std::string& thing, const std::string& type, index_t n,
                              const process_grid& grid, const std::string& command) {

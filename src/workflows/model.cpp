@@ -158,7 +158,7 @@ public:
         m_(m),
         p_(m.grid.p),
         q_(m.grid.q),
-        e_(by_type<double>(m.type, [](auto z) { return double(sizeof(z)); })),
+        e_(element_bytes(m.type)),
         f_(by_type<double>(
             m.type, [](auto z) { return scalar_traits<decltype(z)>::is_complex ? 4.0 : 1.0; })) {}
 

@@ -33,7 +33,7 @@ std::vector<index_t> blocks_of(const plan_options& o) {
 }
 
 memory_need memory_of(const plan_options& o, grid_shape grid, index_t block) {
-  const auto bytes = by_type<std::int64_t>(o.type, [](auto z) { return std::int64_t(sizeof z); });
+  const auto bytes = static_cast<std::int64_t>(element_bytes(o.type));
   return need_per_rank(
       solve_model(grid, o.n, o.nrhs, block, bytes, o.lookahead, o.precision, false));
 }
@@ -80,19 +80,17 @@ plan_result plan(const plan_options& o, const calibration& c) {
     for (const index_t nb : blocks_of(o))
       r.candidates.push_back({g, nb, predict(c, {o.n, r.factored_type, g, nb, o.lookahead})});
   // Fastest first among those that fit; all of them when none does.
-  const auto fits = [&](const plan_candidate& x) {
-    return memory_of(o, x.grid, x.block).total() <= room;
-  };
-  std::stable_sort(r.candidates.begin(), r.candidates.end(), [&](const auto& x, const auto& y) {
-    return std::pair(!fits(x), x.predicted.seconds) < std::pair(!fits(y), y.predicted.seconds);
+  for (auto& x : r.candidates) x.fits = memory_of(o, x.grid, x.block).total() <= room;
+  std::stable_sort(r.candidates.begin(), r.candidates.end(), [](const auto& x, const auto& y) {
+    return std::pair(!x.fits, x.predicted.seconds) < std::pair(!y.fits, y.predicted.seconds);
   });
   const plan_candidate& best = r.chosen();
   r.memory = memory_of(o, best.grid, best.block);
   r.memory_per_rank = r.memory.total();
   r.fits = r.memory_per_rank <= room;
   // A checkpoint holds the matrix being factored.
-  const double e = static_cast<double>(o.n) * static_cast<double>(o.n) *
-                   by_type<double>(r.factored_type, [](auto z) { return double(sizeof z); });
+  const double e =
+      static_cast<double>(o.n) * static_cast<double>(o.n) * element_bytes(r.factored_type);
   r.checkpoint_bytes = e;
   r.checkpoint_disk_bytes = 2 * e;  // the last checkpoint stays until the next is whole
   r.checkpoint_write_seconds = e / c.write_bandwidth;

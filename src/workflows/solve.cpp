@@ -14,6 +14,7 @@
 #include "gridlu/version.hpp"
 #include "io/staged.hpp"
 #include "workflows/budget.hpp"
+#include "workflows/dispatch.hpp"
 #include "workflows/model.hpp"
 #include "workflows/stop.hpp"
 #include "workflows/timing.hpp"
@@ -26,12 +27,6 @@ constexpr std::int64_t format_version = 2;
 
 std::string absolute(const std::string& p) {
   return p.empty() ? p : std::filesystem::absolute(p).lexically_normal().string();
-}
-
-double element_bytes(const std::string& type) {
-  double bytes = 0;
-  dispatch_scalar(type, [&]<class T>(T) { bytes = sizeof(T); });
-  return bytes;
 }
 
 trust_rules rules_of(const job& j) {
