@@ -989,13 +989,19 @@ subcommand add_info(CLI::App& app, double) {
 
 void print_calibration(const workflows::calibration& cal) {
   std::printf("gridlu calibrate: %s\n", cal.source.c_str());
-  for (const auto& [type, r] : cal.types)
+  for (const auto& [type, r] : cal.types) {
     std::printf(
         "  %-10s  GEMM %7.2f GFLOP/s per rank (best), %7.2f at 4096 x 224, %3.0f %% of that "
         "inside LU | panel LU %6.2f at 4096 x 224 | triangular solve %6.2f at k = 224 | "
         "interchanges %.2f ns per entry\n",
         type.c_str(), r.gemm.best(), r.gemm.gflops_at(4096, 224), 100 * r.gemm_in_factorization,
         r.panel.gflops_at(4096, 224), r.trsm.gflops_at(2048, 224), r.swap_seconds * 1e9);
+    const auto& f = r.column;
+    std::printf(
+        "  %-10s  a process column costs, against the figures alone: panel x %.2f, pivot "
+        "search x %.2f, interchanges x %.2f, U rows' scatter and gather x %.2f\n",
+        "", f.panel, f.pivot_search, f.interchange, f.broadcast);
+  }
   const auto link = [](const char* what, const workflows::link_cost& l) {
     std::printf("  %-17s latency %8.2f us, bandwidth %8.2f GB/s\n", what, l.latency * 1e6,
                 l.bandwidth * 1e-9);

@@ -16,6 +16,7 @@
 #include "kernels/blas.hpp"
 #include "workflows/calibrate.hpp"
 #include "workflows/dispatch.hpp"
+#include "workflows/timing.hpp"
 
 namespace gridlu::workflows {
 namespace {
@@ -155,8 +156,7 @@ double gemm_in_factorization(const process_grid& grid, const rate_table& gemm) {
   double measured = std::numeric_limits<double>::infinity();
   for (int run = 0; run < 2; ++run) {
     dist_matrix<T> a(self, n, n, nb);
-    for (index_t j = 0; j < n; ++j)
-      for (index_t i = 0; i < n; ++i) *a.at(i, j) = random_entry<T>(8, i, j);
+    a.fill([](index_t i, index_t j) { return random_entry<T>(8, i, j); });
     comm::barrier(grid.all());
     measured = std::min(measured, factor(a).phases.gemm);
   }
@@ -167,6 +167,38 @@ double gemm_in_factorization(const process_grid& grid, const rate_table& gemm) {
     table += flops_of<T>(2 * t * t * jb) / (1e9 * gemm.gflops_at(std::max(t, 1.0), jb));
   }
   return table / measured;
+}
+
+// The ranks of a process row (or column, whichever is longer) stood up as one process
+// column, every row of them at once: where a process column's costs are measured even
+// when the grid calibrated has a single process row.
+process_grid column_of(const process_grid& grid) {
+  return grid.pcols() >= grid.prows() ? process_grid(grid.row().get(), {grid.pcols(), 1})
+                                      : process_grid(grid.col().get(), {grid.prows(), 1});
+}
+
+// A process column's costs inside a factorization against the model's (from the figures
+// measured before): one of order 1024 per rank of the column (3072 at least) with block
+// 160, each phase its least over three runs on the slowest rank. Not at a block or order
+// the model is validated at, so that the validation tests the model, not the fit.
+template <scalar T>
+column_factors column_factors_of(const process_grid& grid, const process_grid& column,
+                                 const calibration& c, const std::string& type) {
+  if (column.size() < 2) return {};
+  const index_t n = std::max<index_t>(3072, 1024 * column.size()), nb = 160;
+  constexpr double never = std::numeric_limits<double>::infinity();
+  lu_phases least{never, never, never, never};  // the phases a process column adds
+  for (int run = 0; run < 3; ++run) {
+    dist_matrix<T> a(column, n, n, nb);
+    a.fill([](index_t i, index_t j) { return random_entry<T>(9, i, j); });
+    comm::barrier(grid.all());
+    const lu_phases p = slowest(grid, factor(a).phases);
+    least = {std::min(least.panel, p.panel), std::min(least.pivot_search, p.pivot_search),
+             std::min(least.interchange, p.interchange), std::min(least.broadcast, p.broadcast)};
+  }
+  const lu_phases model = predict(c, {n, type, column.shape(), nb, 1}).phases;
+  return {least.panel / model.panel, least.pivot_search / model.pivot_search,
+          least.interchange / model.interchange, least.broadcast / model.broadcast};
 }
 
 // One step of a broadcast tree over c from the times of a small and a large broadcast,
@@ -241,16 +273,18 @@ calibration calibrate(const process_grid& grid, const calibrate_options& o) {
   calibration c;
   c.source = source_of(grid);
   c.ranks = grid.size();
+  const process_grid column = column_of(grid);
+  c.point_to_point = point_to_point(grid);
+  c.row_broadcast = tree_step(grid, grid.row(), c.point_to_point);
+  c.column_broadcast = tree_step(grid, column.col(), c.point_to_point);
   for (const auto& type : o.types)
     with_type(type, [&]<class T>(T) {
       const rate_table gemm = gemm_rates<T>(grid);
       c.types.push_back({type,
                          {gemm, trsm_rates<T>(grid), panel_rates<T>(grid), swap_seconds<T>(grid),
-                          gemm_in_factorization<T>(grid, gemm)}});
+                          gemm_in_factorization<T>(grid, gemm), column_factors{}}});
+      c.types.back().second.column = column_factors_of<T>(grid, column, c, type);
     });
-  c.point_to_point = point_to_point(grid);
-  c.row_broadcast = tree_step(grid, grid.row(), c.point_to_point);
-  c.column_broadcast = tree_step(grid, grid.col(), c.point_to_point);
   c.write_bandwidth = write_bandwidth(grid, o.checkpoint_dir, o.write_bytes);
   return c;
 }

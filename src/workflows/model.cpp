@@ -46,6 +46,21 @@ nlohmann::json table_json(const rate_table& t) {
   for (const auto& s : t.samples()) j.push_back({s.rows, s.k, s.gflops});
   return j;
 }
+nlohmann::json column_json(const column_factors& f) {
+  return {{"panel", f.panel},
+          {"pivot_search", f.pivot_search},
+          {"interchange", f.interchange},
+          {"broadcast", f.broadcast}};
+}
+column_factors column_from(const nlohmann::json& j) {
+  const column_factors f{j.at("panel").get<double>(), j.at("pivot_search").get<double>(),
+                         j.at("interchange").get<double>(), j.at("broadcast").get<double>()};
+  for (const double x : {f.panel, f.pivot_search, f.interchange, f.broadcast})
+    if (!(x > 0 && std::isfinite(x)))
+      throw error(error_kind::input, "a process column factor must be finite and above 0");
+  return f;
+}
+
 rate_table table_from(const nlohmann::json& j) {
   std::vector<rate_sample> samples;
   for (const auto& s : j) {
@@ -100,8 +115,9 @@ nlohmann::json calibration::json() const {
                {"trsm", table_json(r.trsm)},
                {"panel", table_json(r.panel)},
                {"swap_seconds_per_entry", r.swap_seconds},
-               {"gemm_in_factorization", r.gemm_in_factorization}};
-  return {{"format", "gridlu calibration 1"},
+               {"gemm_in_factorization", r.gemm_in_factorization},
+               {"process_column", column_json(r.column)}};
+  return {{"format", format},
           {"source", source},
           {"ranks", ranks},
           {"point_to_point", link_json(point_to_point)},
@@ -113,9 +129,9 @@ nlohmann::json calibration::json() const {
 
 calibration calibration::from_json(const nlohmann::json& j) {
   try {
-    if (j.at("format") != "gridlu calibration 1")
-      throw error(error_kind::input,
-                  "not a gridlu calibration (format " + j.at("format").dump() + ")");
+    if (j.at("format") != format)
+      throw error(error_kind::input, "a calibration of format " + j.at("format").dump() +
+                                         ", not \"" + format + "\": run gridlu calibrate again");
     calibration c;
     c.source = j.at("source").get<std::string>();
     c.ranks = j.at("ranks").get<int>();
@@ -123,11 +139,15 @@ calibration calibration::from_json(const nlohmann::json& j) {
     c.row_broadcast = link_from(j.at("row_broadcast"));
     c.column_broadcast = link_from(j.at("column_broadcast"));
     c.write_bandwidth = j.at("checkpoint_write_bytes_per_second").get<double>();
-    for (const auto& [name, t] : j.at("types").items())
-      c.types.push_back(
-          {name,
-           {table_from(t.at("gemm")), table_from(t.at("trsm")), table_from(t.at("panel")),
-            t.at("swap_seconds_per_entry").get<double>()}});
+    for (const auto& [name, t] : j.at("types").items()) {
+      const double in_factorization = t.at("gemm_in_factorization").get<double>();
+      if (!(in_factorization > 0 && std::isfinite(in_factorization)))
+        throw error(error_kind::input, "gemm_in_factorization must be finite and above 0");
+      c.types.push_back({name,
+                         {table_from(t.at("gemm")), table_from(t.at("trsm")),
+                          table_from(t.at("panel")), t.at("swap_seconds_per_entry").get<double>(),
+                          in_factorization, column_from(t.at("process_column"))}});
+    }
     return c;
   } catch (const nlohmann::json::exception& e) {
     throw error(error_kind::input, std::string("a malformed calibration: ") + e.what());
@@ -179,9 +199,11 @@ public:
       s.interchange +=
           (p_ - 1) * c_.column_broadcast.latency + moved / 2 * e_ / c_.column_broadcast.bandwidth;
     s.trsm = f_ * jb * jb * (t / q_) / p_ / rate(r_.trsm, 2048, jb);
-    if (p_ > 1)
+    if (p_ > 1) {
       s.broadcast = 2 * (ceil_log2(p_) * c_.column_broadcast.latency +
                          jb * (t / q_) * e_ * (p_ - 1) / p_ / c_.column_broadcast.bandwidth);
+      apply_column_factors(s);
+    }
     // GEMM's rate follows the smaller of the local block's sides.
     s.gemm = f_ * 2 * (t / p_) * (t / q_) * jb / rate(r_.gemm, std::min(t / p_, t / q_), jb) /
              r_.gemm_in_factorization;
@@ -204,6 +226,14 @@ private:
     const double levels = std::max(0.0, std::ceil(std::log2(jb / 16)));
     s.panel += s.search + levels * ceil_log2(p_) * col.seconds(jb * jb / 4 * e_) +
                (jb / 16) * 2 * col.latency + ceil_log2(p_) * col.seconds(jb * jb * e_);
+  }
+
+  void apply_column_factors(step_cost& s) const {
+    const column_factors& f = r_.column;
+    s.panel *= f.panel;
+    s.search *= f.pivot_search;
+    s.interchange *= f.interchange;
+    s.broadcast *= f.broadcast;
   }
 
   const calibration& c_;

@@ -40,6 +40,15 @@ struct link_cost {
   double seconds(double bytes) const { return latency + bytes / bandwidth; }
 };
 
+// A process column's costs inside a factorization against what the figures alone predict
+// for them (measured / modelled): the panel over several process rows, its pivot
+// reductions, the interchanges between process rows and the U block row's scatter and
+// gather. Each rank waits there for the slowest of its column and works on data the
+// GEMM has just left, which a ping-pong does not see. 1 where a single rank measured.
+struct column_factors {
+  double panel = 1, pivot_search = 1, interchange = 1, broadcast = 1;
+};
+
 struct kernel_rates {
   rate_table gemm, trsm, panel;
   double swap_seconds = 0;  // per entry a row interchange moves within a rank
@@ -47,9 +56,12 @@ struct kernel_rates {
   // between the chunks of an update the interchanges and the triangular solve take the
   // caches, which GEMM alone keeps.
   double gemm_in_factorization = 1;
+  column_factors column;
 };
 
 struct calibration {
+  // The JSON's "format"; files of any other are refused.
+  static constexpr const char* format = "gridlu calibration 2";
   std::string source;  // where and when it was measured
   int ranks = 1;
   std::vector<std::pair<std::string, kernel_rates>> types;  // by type name: "float64", ...

@@ -1,8 +1,10 @@
 """The performance model against the machine it runs on: `gridlu calibrate` on 1 and on 2 ranks,
-then `gridlu bench` at several orders, block sizes and both grid shapes of 2 ranks, each median
-factorization time within 15 % of what `gridlu plan` predicts from that calibration for the same
-order, grid and block. A test of ratios, measured and predicted in the same run: it says nothing
-of the absolute speed."""
+then `gridlu bench` at several orders, block sizes and both grid shapes of 2 ranks, each fastest
+of five factorizations within 15 % of what `gridlu plan` predicts from that calibration for the
+same order, grid and block. The fastest, as every calibrated figure is the best of several
+batches: both then leave out what other processes took (runs of one bench here spread by up to
+20 % on a busy host). A test of ratios, measured and predicted in the same run: it says nothing of
+the absolute speed."""
 
 import json
 import sys
@@ -13,14 +15,11 @@ import harness  # noqa: E402
 
 suite = harness.Suite(__doc__)
 TOLERANCE = 0.15
-# Orders where a factorization lasts half a second or more: shorter ones move by more than
-# the tolerance when the system takes a core for a moment. Each bench gives the median of
-# five factorizations, which two such moments cannot move. Not here: 2x1 with block 128,
-# where the model misses the per-step cost of the two process rows' collectives (17.5 %
-# too fast in one CI run; docs/model.md) -- open work, not a pass.
+# Orders where a factorization lasts half a second or more, at blocks and orders other than
+# those calibrate measures inside a factorization (3072 and 160), so that no point is fitted.
 POINTS = [(1, "1x1", 3072, 128), (1, "1x1", 4096, 224),
           (2, "1x2", 4096, 128), (2, "1x2", 4096, 224), (2, "1x2", 6144, 192),
-          (2, "2x1", 4096, 224), (2, "2x1", 6144, 192)]
+          (2, "2x1", 4096, 128), (2, "2x1", 4096, 224), (2, "2x1", 6144, 192)]
 
 calibrations = {}
 for ranks in (1, 2):
@@ -46,15 +45,15 @@ for ranks, grid, n, block in POINTS:
         predicted = json.loads(run.stdout)
         c.check(predicted["grid"] == measured["grid"] and predicted["block"] == block,
                 f"plan answered for grid {predicted['grid']}, block {predicted['block']}")
-        ratio = measured["times"]["factor"] / predicted["predicted_seconds"]
-        rows.append((ranks, grid, n, block, measured["times"]["factor"],
-                     predicted["predicted_seconds"], ratio))
+        fastest = min(measured["times"]["factor_runs"])
+        ratio = fastest / predicted["predicted_seconds"]
+        rows.append((ranks, grid, n, block, fastest, predicted["predicted_seconds"], ratio))
         c.check(abs(ratio - 1) <= TOLERANCE,
-                f"measured {measured['times']['factor']:.3f} s, predicted "
+                f"fastest {fastest:.3f} s of {measured['times']['factor_runs']}, predicted "
                 f"{predicted['predicted_seconds']:.3f} s: ratio {ratio:.3f}\n"
                 f"measured phases {measured['phases']}\npredicted phases {predicted['phases']}")
 
-print("ranks grid  n     block measured predicted ratio")
+print("ranks grid  n     block fastest predicted ratio")
 for r in rows:
-    print("%5d %-5s %-5d %5d %8.3f %9.3f %5.3f" % r)
+    print("%5d %-5s %-5d %5d %7.3f %9.3f %5.3f" % r)
 suite.finish()

@@ -19,7 +19,8 @@ calibration uniform(double gflops) {
       {{128, 32, gflops}, {4096, 32, gflops}, {128, 384, gflops}, {4096, 384, gflops}});
   calibration c;
   c.source = "uniform";
-  c.types = {{"float64", {flat, flat, flat, 0.0}}, {"complex128", {flat, flat, flat, 0.0}}};
+  const kernel_rates same{flat, flat, flat, 0.0, 1.0, {}};
+  c.types = {{"float64", same}, {"complex128", same}};
   c.point_to_point = c.row_broadcast = c.column_broadcast = {0.0, 1e300};
   c.write_bandwidth = 1e9;
   return c;
@@ -60,6 +61,23 @@ TEST(Model, LookaheadHidesPanelsOnlyWithSeveralProcessColumns) {
   EXPECT_DOUBLE_EQ(time({4, 1}, 1), time({4, 1}, 0));
 }
 
+// The process column's factors scale the costs several process rows add, and nothing on
+// a single process row.
+TEST(Model, ColumnFactorsScaleOnlyWhatSeveralProcessRowsAdd) {
+  const calibration plain = builtin_calibration();
+  calibration scaled = plain;
+  for (auto& [type, r] : scaled.types) r.column = {2, 3, 4, 5};
+  const model_case flat{4000, "float64", {1, 2}, 192, 1}, tall{4000, "float64", {2, 1}, 192, 1};
+  EXPECT_DOUBLE_EQ(predict(scaled, flat).seconds, predict(plain, flat).seconds);
+  const lu_phases before = predict(plain, tall).phases, after = predict(scaled, tall).phases;
+  const column_factors& f = plain.rates("float64").column;
+  EXPECT_NEAR(after.panel / before.panel, 2 / f.panel, 1e-12);
+  EXPECT_NEAR(after.pivot_search / before.pivot_search, 3 / f.pivot_search, 1e-12);
+  EXPECT_NEAR(after.interchange / before.interchange, 4 / f.interchange, 1e-12);
+  EXPECT_NEAR(after.broadcast / before.broadcast, 5 / f.broadcast, 1e-12);
+  EXPECT_DOUBLE_EQ(after.gemm, before.gemm);
+}
+
 TEST(Model, RemainingFallsStepByStepToZero) {
   const auto p = predict(builtin_calibration(), {3000, "float64", {1, 2}, 224, 1});
   EXPECT_DOUBLE_EQ(p.remaining(0), p.seconds);
@@ -86,7 +104,20 @@ TEST(Calibration, JsonRoundTripAndRefusals) {
   const calibration c = builtin_calibration();
   const calibration back = calibration::from_json(c.json());
   EXPECT_EQ(back.json(), c.json());
+  calibration changed = c;  // figures the built-in rates do not have survive too
+  changed.types.front().second.gemm_in_factorization = 0.75;
+  changed.types.front().second.column = {1.5, 2.5, 3.5, 4.5};
+  const kernel_rates& read = calibration::from_json(changed.json()).types.front().second;
+  EXPECT_EQ(read.gemm_in_factorization, 0.75);
+  EXPECT_EQ(read.column.panel, 1.5);
+  EXPECT_EQ(read.column.broadcast, 4.5);
   auto broken = c.json();
+  broken["types"]["float64"]["process_column"]["broadcast"] = 0;
+  EXPECT_THROW(calibration::from_json(broken), gridlu::error);
+  broken = c.json();
+  broken["format"] = "gridlu calibration 1";
+  EXPECT_THROW(calibration::from_json(broken), gridlu::error);
+  broken = c.json();
   broken["format"] = "something else";
   EXPECT_THROW(calibration::from_json(broken), gridlu::error);
   broken = c.json();
