@@ -42,9 +42,10 @@ struct link_cost {
 
 // A process column's costs inside a factorization against what the figures alone predict
 // for them (measured / modelled): the panel over several process rows, its pivot
-// reductions, the interchanges between process rows and the U block row's scatter and
-// gather. Each rank waits there for the slowest of its column and works on data the
-// GEMM has just left, which a ping-pong does not see. 1 where a single rank measured.
+// reductions, the interchanges with their messages, and the U block row's scatter and
+// gather. Each rank waits there for the slowest of its column and copies blocks the GEMM
+// has pushed out of cache, which a ping-pong between idle ranks does not see. 1 where a
+// single rank was calibrated.
 struct column_factors {
   double panel = 1, pivot_search = 1, interchange = 1, broadcast = 1;
 };
