@@ -107,7 +107,8 @@ TEST(Calibration, JsonRoundTripAndRefusals) {
   calibration changed = c;  // figures the built-in rates do not have survive too
   changed.types.front().second.gemm_in_factorization = 0.75;
   changed.types.front().second.column = {1.5, 2.5, 3.5, 4.5};
-  const kernel_rates& read = calibration::from_json(changed.json()).types.front().second;
+  const calibration reread = calibration::from_json(changed.json());
+  const kernel_rates& read = reread.types.front().second;
   EXPECT_EQ(read.gemm_in_factorization, 0.75);
   EXPECT_EQ(read.column.panel, 1.5);
   EXPECT_EQ(read.column.broadcast, 4.5);
