@@ -138,6 +138,13 @@ with suite.case("plan refusals: exit 2 for usage, 3 for a calibration file") as 
     bad = c.dir / "bad.json"
     bad.write_text('{"format": "something"}')
     c.failed_with(suite.run("plan", "--calibration", bad, *base), 3, "bad.json")
+    # A calibration of the first format lacks the process column's factors: measure again.
+    old = json.loads(rates.read_text())
+    old["format"] = "gridlu calibration 1"
+    for figures in old["types"].values():
+        del figures["process_column"]
+    bad.write_text(json.dumps(old))
+    c.failed_with(suite.run("plan", "--calibration", bad, *base), 3, "calibrate again")
 
 with suite.case("the progress line's time left matches the time the factorization took") as c:
     system, out = c.dir / "a.h5", c.dir / "x.h5"
