@@ -158,11 +158,6 @@ struct grid_hint {
   int lookahead = workflows::default_lookahead;
 };
 
-// Orders above this get the squarest grid without asking the model, whose cost grows with
-// the number of panel steps: no memory holds such a matrix (2^24 squared float32 entries
-// are a petabyte), and the memory check refuses it once the grid exists.
-constexpr index_t model_order_limit = index_t{1} << 24;
-
 // The grid of a run: --grid, or the one the model predicts fastest for the matrix; the
 // squarest one (P <= Q) when the order is not known.
 process_grid make_grid(const common_options& o, const grid_hint& h = {}) {
@@ -171,7 +166,7 @@ process_grid make_grid(const common_options& o, const grid_hint& h = {}) {
   grid_shape shape = square_grid_shape(ranks);
   if (!o.grid.empty())
     shape = parse_grid_shape(o.grid);
-  else if (h.n > 0 && h.n <= model_order_limit)
+  else if (h.n > 0 && h.n <= workflows::model_order_limit)  // above: the memory check refuses
     shape = workflows::model_grid(ranks, h.n, h.type,
                                   workflows::block_for(h.block, h.n, workflows::default_block),
                                   h.lookahead);

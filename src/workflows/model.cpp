@@ -204,9 +204,10 @@ public:
                          jb * (t / q_) * e_ * (p_ - 1) / p_ / c_.column_broadcast.bandwidth);
       apply_column_factors(s);
     }
-    // GEMM's rate follows the smaller of the local block's sides.
+    // GEMM's rate follows the smaller of the local block's sides; inside a factorization
+    // it cannot beat its rate alone (a share above 1 is a calibration's noise).
     s.gemm = f_ * 2 * (t / p_) * (t / q_) * jb / rate(r_.gemm, std::min(t / p_, t / q_), jb) /
-             r_.gemm_in_factorization;
+             std::min(1.0, r_.gemm_in_factorization);
     return s;
   }
 
@@ -247,6 +248,10 @@ private:
 prediction predict(const calibration& c, const model_case& m) {
   if (m.n < 1 || m.block < 1 || m.grid.p < 1 || m.grid.q < 1)
     throw error(error_kind::usage, "the model needs an order, a block and a grid above 0");
+  if (m.n > model_order_limit)
+    throw error(error_kind::usage, "the model covers orders up to " +
+                                       std::to_string(model_order_limit) + ", not " +
+                                       std::to_string(m.n));
   const step_model model(c, m);
   const bool overlap = m.lookahead > 0 && m.grid.q > 1;
   prediction out;

@@ -78,6 +78,10 @@ struct calibration {
 // calibration is given, the progress line always (it scales them to the run's own pace).
 calibration builtin_calibration();
 
+// The largest order the model walks, its cost growing with the panel steps: no memory
+// holds a larger matrix (2^24 squared float32 entries are a petabyte).
+inline constexpr index_t model_order_limit = index_t{1} << 24;
+
 struct model_case {
   index_t n = 0;
   std::string type = "float64";
@@ -102,6 +106,7 @@ struct prediction {
 // its broadcast along the process rows, the interchanges, the U block row (triangular
 // solve, and its scatter and gather down a process column) and the trailing GEMM. With
 // look-ahead and more than one process column a panel overlaps the previous update.
+// A usage error above model_order_limit.
 prediction predict(const calibration& c, const model_case& m);
 
 }  // namespace gridlu::workflows

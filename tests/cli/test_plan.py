@@ -134,6 +134,7 @@ with suite.case("plan refusals: exit 2 for usage, 3 for a calibration file") as 
     c.failed_with(plan(*base, "--grid", "3x3"), 2, "grid")
     c.failed_with(plan(*base, "--type", "complex128"), 2, "complex128")
     c.failed_with(plan("--n", 0, *base[2:]), 2)
+    c.failed_with(plan("--n", 2**24 + 1, *base[2:]), 2, "orders up to 16777216")
     c.failed_with(suite.run("plan", "--calibration", c.dir / "none.json", *base), 3, "none.json")
     bad = c.dir / "bad.json"
     bad.write_text('{"format": "something"}')

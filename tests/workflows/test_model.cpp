@@ -52,6 +52,21 @@ TEST(Model, MoreRanksLessTimeAndEfficiencyBelowOne) {
               1e-9 * four.seconds);
 }
 
+// Efficiency is against every rank at its best GEMM rate alone, which the update inside a
+// factorization cannot beat, whatever share of it a noisy calibration measured.
+TEST(Model, EfficiencyStaysBelowOneWithANoisyShare) {
+  calibration c = builtin_calibration();
+  for (auto& [type, r] : c.types) r.gemm_in_factorization = 1.2;
+  for (const grid_shape g : {grid_shape{1, 1}, grid_shape{8, 1}, grid_shape{2, 4}})
+    EXPECT_LE(predict(c, {1000000, "float64", g, 320, 1}).efficiency, 1.0);
+}
+
+TEST(Model, RefusesOrdersBeyondItsLimit) {
+  const calibration c = builtin_calibration();
+  EXPECT_THROW(predict(c, {model_order_limit + 1, "float32", {4, 4}, 384, 1}), gridlu::error);
+  EXPECT_THROW(predict(c, {0, "float32", {4, 4}, 384, 1}), gridlu::error);
+}
+
 TEST(Model, LookaheadHidesPanelsOnlyWithSeveralProcessColumns) {
   const calibration c = builtin_calibration();
   const auto time = [&](grid_shape g, int depth) {
