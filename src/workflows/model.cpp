@@ -52,13 +52,16 @@ nlohmann::json column_json(const column_factors& f) {
           {"interchange", f.interchange},
           {"broadcast", f.broadcast}};
 }
+// A measured factor: finite and above 0.
+double factor_from(const nlohmann::json& j, const char* key) {
+  const double x = j.at(key).get<double>();
+  if (!(x > 0 && std::isfinite(x)))
+    throw error(error_kind::input, std::string(key) + " must be finite and above 0");
+  return x;
+}
 column_factors column_from(const nlohmann::json& j) {
-  const column_factors f{j.at("panel").get<double>(), j.at("pivot_search").get<double>(),
-                         j.at("interchange").get<double>(), j.at("broadcast").get<double>()};
-  for (const double x : {f.panel, f.pivot_search, f.interchange, f.broadcast})
-    if (!(x > 0 && std::isfinite(x)))
-      throw error(error_kind::input, "a process column factor must be finite and above 0");
-  return f;
+  return {factor_from(j, "panel"), factor_from(j, "pivot_search"), factor_from(j, "interchange"),
+          factor_from(j, "broadcast")};
 }
 
 rate_table table_from(const nlohmann::json& j) {
@@ -139,15 +142,12 @@ calibration calibration::from_json(const nlohmann::json& j) {
     c.row_broadcast = link_from(j.at("row_broadcast"));
     c.column_broadcast = link_from(j.at("column_broadcast"));
     c.write_bandwidth = j.at("checkpoint_write_bytes_per_second").get<double>();
-    for (const auto& [name, t] : j.at("types").items()) {
-      const double in_factorization = t.at("gemm_in_factorization").get<double>();
-      if (!(in_factorization > 0 && std::isfinite(in_factorization)))
-        throw error(error_kind::input, "gemm_in_factorization must be finite and above 0");
-      c.types.push_back({name,
-                         {table_from(t.at("gemm")), table_from(t.at("trsm")),
-                          table_from(t.at("panel")), t.at("swap_seconds_per_entry").get<double>(),
-                          in_factorization, column_from(t.at("process_column"))}});
-    }
+    for (const auto& [name, t] : j.at("types").items())
+      c.types.push_back(
+          {name,
+           {table_from(t.at("gemm")), table_from(t.at("trsm")), table_from(t.at("panel")),
+            t.at("swap_seconds_per_entry").get<double>(), factor_from(t, "gemm_in_factorization"),
+            column_from(t.at("process_column"))}});
     return c;
   } catch (const nlohmann::json::exception& e) {
     throw error(error_kind::input, std::string("a malformed calibration: ") + e.what());
