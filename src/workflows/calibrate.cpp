@@ -196,7 +196,7 @@ column_factors column_factors_of(const process_grid& grid, const process_grid& c
     least = {std::min(least.panel, p.panel), std::min(least.pivot_search, p.pivot_search),
              std::min(least.interchange, p.interchange), std::min(least.broadcast, p.broadcast)};
   }
-  const lu_phases model = predict(c, {n, type, column.shape(), nb, 1}).phases;
+  const lu_phases model = predict(c, {n, type, column.shape(), nb, lu_options{}.lookahead}).phases;
   return {least.panel / model.panel, least.pivot_search / model.pivot_search,
           least.interchange / model.interchange, least.broadcast / model.broadcast};
 }

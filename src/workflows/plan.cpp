@@ -87,7 +87,7 @@ plan_result plan(const plan_options& o, const calibration& c) {
   const plan_candidate& best = r.chosen();
   r.memory = memory_of(o, best.grid, best.block);
   r.memory_per_rank = r.memory.total();
-  r.fits = r.memory_per_rank <= room;
+  r.fits = best.fits;
   // A checkpoint holds the matrix being factored.
   const double e =
       static_cast<double>(o.n) * static_cast<double>(o.n) * element_bytes(r.factored_type);
